@@ -1,0 +1,111 @@
+package stream
+
+// fastLine decodes the next line in place when it is a plain data line:
+// decimals of at most 15 digits without an exponent, separated by the
+// delimiter, ended by LF or CRLF. It scans the line once, splitting and
+// parsing together, and gives the values the general path gives: an
+// integer mantissa below 10^15 and a power of ten up to 1e15 are exact in a
+// float64, so one IEEE division rounds correctly, as in parseNumber's fast
+// path. Anything else — a comment, a bad line, a number in another form, a
+// line not yet complete in the buffer — returns ok false without consuming
+// input, and the general path takes the line.
+func (d *Decoder) fastLine(vals *[5]float64) bool {
+	if d.end-d.start < MaxLineBytes+2 && d.readErr == nil {
+		d.fill()
+	}
+	b := d.buf[d.start:d.end]
+	if len(b) > MaxLineBytes+2 {
+		b = b[:MaxLineBytes+2]
+	}
+	p, n := 0, len(b)
+	delim, kinds, ncols := d.delim, &d.kinds, d.ncols
+	var out [5]float64
+	for col := 0; col < ncols; col++ {
+		if col > 0 {
+			if p >= n {
+				return false
+			}
+			if c := b[p]; delim == ' ' {
+				if c != ' ' && c != '\t' {
+					return false
+				}
+			} else if c != delim {
+				return false
+			} else {
+				p++
+			}
+		}
+		for p < n && (b[p] == ' ' || b[p] == '\t') {
+			p++
+		}
+		k := kinds[col]
+		if k == kindIgnore {
+			for p < n && b[p] != delim && b[p] != '\n' && b[p] != '\r' && b[p] != ' ' && b[p] != '\t' {
+				p++
+			}
+		} else {
+			neg := false
+			if p < n && (b[p] == '-' || b[p] == '+') {
+				neg = b[p] == '-'
+				p++
+			}
+			var mant uint64
+			nd, dot := 0, -1
+			for p < n {
+				c := b[p]
+				if c-'0' <= 9 {
+					mant = mant*10 + uint64(c-'0')
+					nd++
+				} else if c == '.' && dot < 0 {
+					dot = nd
+				} else {
+					break
+				}
+				p++
+			}
+			if nd == 0 || nd > 15 || (p < n && (b[p] == 'e' || b[p] == 'E')) {
+				return false
+			}
+			frac := 0
+			if dot >= 0 {
+				frac = nd - dot
+			}
+			v := float64(mant) / pow10[frac]
+			if neg {
+				v = -v
+			}
+			out[k] = v
+		}
+		if delim != ' ' {
+			for p < n && (b[p] == ' ' || b[p] == '\t') {
+				p++
+			}
+		}
+	}
+	for p < n && (b[p] == ' ' || b[p] == '\t') {
+		p++
+	}
+	content := p // the line's length without CR
+	if p < n && b[p] == '\r' {
+		p++
+	}
+	if p >= n || b[p] != '\n' || content > MaxLineBytes {
+		return false
+	}
+	d.start += p + 1
+	*vals = out
+	return true
+}
+
+// fill moves the unread bytes to the front of the buffer and reads once.
+func (d *Decoder) fill() {
+	if d.start > 0 {
+		d.end = copy(d.buf, d.buf[d.start:d.end])
+		d.start = 0
+	}
+	n, err := d.r.Read(d.buf[d.end:])
+	d.end += n
+	if err != nil {
+		d.readErr = err
+	}
+}
