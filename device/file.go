@@ -1,0 +1,76 @@
+package device
+
+import (
+	"bufio"
+	"compress/gzip"
+	"errors"
+	"fmt"
+	"io"
+	"io/fs"
+	"os"
+)
+
+// File is a recorded stream read from disk, gzip-compressed or not (told
+// by its first bytes), released at Pacer's speed.
+type File struct {
+	f     *os.File
+	r     io.Reader
+	pacer Pacer
+}
+
+// OpenFile opens a recording. speed is as for Pacer: 0 for as fast as
+// possible.
+func OpenFile(path string, speed float64) (*File, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		if errors.Is(err, fs.ErrNotExist) {
+			return nil, fmt.Errorf("recording %s does not exist", path)
+		}
+		return nil, fmt.Errorf("open recording: %w", err)
+	}
+	if st, err := f.Stat(); err == nil && st.IsDir() {
+		f.Close()
+		return nil, fmt.Errorf("%s is a directory, not a recording", path)
+	}
+	r, err := maybeGzip(f)
+	if err != nil {
+		f.Close()
+		return nil, fmt.Errorf("%s: %w", path, err)
+	}
+	return &File{f: f, r: r, pacer: Pacer{Speed: speed}}, nil
+}
+
+// maybeGzip returns a reader that decompresses r when it starts with the
+// gzip magic bytes.
+func maybeGzip(r io.Reader) (io.Reader, error) {
+	br := bufio.NewReaderSize(r, 64<<10)
+	magic, err := br.Peek(2)
+	if err == nil && magic[0] == 0x1f && magic[1] == 0x8b {
+		zr, err := gzip.NewReader(br)
+		if err != nil {
+			return nil, fmt.Errorf("gzip: %w", err)
+		}
+		return zr, nil
+	}
+	return br, nil
+}
+
+// Read reads the recording; its end is io.EOF.
+func (f *File) Read(p []byte) (int, error) { return f.r.Read(p) }
+
+// Close closes the file.
+func (f *File) Close() error { return f.f.Close() }
+
+// Pacer returns the file's pacer.
+func (f *File) Pacer() *Pacer { return &f.pacer }
+
+// Stdin is standard input as a source; closing it unblocks a pending Read.
+func Stdin() io.ReadCloser {
+	r, _ := maybeGzip(os.Stdin)
+	return readCloser{r, os.Stdin}
+}
+
+type readCloser struct {
+	io.Reader
+	io.Closer
+}
