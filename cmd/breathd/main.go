@@ -1,0 +1,153 @@
+// Command breathd reads a ventilator's airway pressure and flow stream and
+// reports respiratory mechanics. Run "breathd help" for the verbs.
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"os/signal"
+	"runtime/debug"
+	"strings"
+	"syscall"
+	"time"
+
+	"breathd/stream"
+
+	"github.com/mattn/go-isatty"
+	"github.com/rs/zerolog"
+)
+
+// version is set at build time with -ldflags "-X main.version=…".
+var version = ""
+
+const usage = `breathd — per-breath respiratory mechanics from a ventilator's pressure/flow stream.
+
+NOTICE: %s
+
+Usage:
+  breathd run --config FILE        run the devices of a configuration file
+  breathd replay [flags] FILE      run on a recorded stream (FILE or - for stdin)
+  breathd check FILE               validate a configuration file and show what it would run
+  breathd ports                    list serial ports with their USB details
+  breathd version                  print the version
+  breathd help                     this text
+
+Run "breathd VERB -h" for a verb's flags.
+`
+
+// usageError is a mistake in the command line: exit code 2.
+type usageError struct{ msg string }
+
+func (e *usageError) Error() string { return e.msg }
+
+func usagef(format string, a ...any) error { return &usageError{fmt.Sprintf(format, a...)} }
+
+func main() {
+	os.Exit(run(os.Args[1:], os.Stdout, os.Stderr))
+}
+
+// run executes one command line and returns the exit code.
+func run(args []string, stdout, stderr io.Writer) int {
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	err := dispatch(ctx, args, stdout, stderr)
+	if err == nil || errors.Is(err, flag.ErrHelp) {
+		return 0
+	}
+	fmt.Fprintf(stderr, "breathd: %v\n", err)
+	var ue *usageError
+	if errors.As(err, &ue) {
+		return 2
+	}
+	return 1
+}
+
+func dispatch(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	if len(args) == 0 {
+		fmt.Fprintf(stderr, usage, stream.Advisory)
+		return usagef("no verb given")
+	}
+	verb, rest := args[0], args[1:]
+	switch verb {
+	case "run":
+		return cmdRun(ctx, rest, stdout, stderr)
+	case "replay":
+		return cmdReplay(ctx, rest, stdout, stderr)
+	case "check":
+		return cmdCheck(rest, stdout, stderr)
+	case "ports":
+		return cmdPorts(rest, stdout, stderr)
+	case "version", "--version":
+		fmt.Fprintln(stdout, "breathd", versionString())
+		return nil
+	case "help", "-h", "-help", "--help":
+		fmt.Fprintf(stdout, usage, stream.Advisory)
+		return nil
+	}
+	return usagef("unknown verb %q (try: breathd help)", verb)
+}
+
+func versionString() string {
+	if version != "" {
+		return version
+	}
+	if bi, ok := debug.ReadBuildInfo(); ok && bi.Main.Version != "" && bi.Main.Version != "(devel)" {
+		return bi.Main.Version
+	}
+	return "dev"
+}
+
+// newFlags makes a verb's flag set whose errors become usage errors.
+func newFlags(name, synopsis string, stderr io.Writer) *flag.FlagSet {
+	fs := flag.NewFlagSet(name, flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	fs.Usage = func() {
+		fmt.Fprintf(stderr, "Usage: breathd %s\n\nNOTICE: %s\n\nFlags:\n", synopsis, stream.Advisory)
+		fs.PrintDefaults()
+	}
+	return fs
+}
+
+// parseFlags parses args; a bad flag is a usage error in one line.
+func parseFlags(fs *flag.FlagSet, args []string) error {
+	out, show := fs.Output(), fs.Usage
+	fs.SetOutput(io.Discard)
+	fs.Usage = func() {}
+	err := fs.Parse(args)
+	fs.SetOutput(out)
+	fs.Usage = show
+	if errors.Is(err, flag.ErrHelp) {
+		show()
+		return err
+	}
+	if err != nil {
+		return usagef("%s: %v (see breathd %s -h)", fs.Name(), err, fs.Name())
+	}
+	return nil
+}
+
+func parseLevel(s string) (zerolog.Level, error) {
+	if s == "" {
+		return zerolog.InfoLevel, nil
+	}
+	l, err := zerolog.ParseLevel(strings.ToLower(s))
+	if err != nil || l == zerolog.NoLevel {
+		return 0, fmt.Errorf("log level %q: want trace, debug, info, warn or error", s)
+	}
+	return l, nil
+}
+
+// newLogger logs JSON to stderr, or readable lines when stderr is a
+// terminal.
+func newLogger(stderr io.Writer, level zerolog.Level) zerolog.Logger {
+	zerolog.TimeFieldFormat = time.RFC3339Nano
+	w := stderr
+	if f, ok := stderr.(*os.File); ok && isatty.IsTerminal(f.Fd()) {
+		w = zerolog.ConsoleWriter{Out: stderr, TimeFormat: "15:04:05"}
+	}
+	return zerolog.New(w).Level(level).With().Timestamp().Logger()
+}

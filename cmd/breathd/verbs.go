@@ -1,0 +1,255 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"strings"
+	"sync"
+	"time"
+
+	"breathd/device"
+	"breathd/stream"
+
+	"github.com/rs/zerolog"
+)
+
+// deviceRun is one device ready to start.
+type deviceRun struct {
+	id     string
+	src    io.ReadCloser
+	format stream.Format
+}
+
+func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("replay", "replay [flags] FILE|-", stderr)
+	var ff formatFlags
+	ff.register(fs)
+	speed := fs.String("speed", "1", "1 for real time, N for N times faster, max for as fast as possible")
+	id := fs.String("id", "", "device id (default: the file's base name)")
+	record := fs.String("record", "", "also record the stream raw into this directory")
+	level := fs.String("log-level", "info", "log level: debug, info, warn or error")
+	every := fs.Duration("report-every", 5*time.Second, "how often to print the counters")
+	if err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	if fs.NArg() != 1 {
+		return usagef("replay takes one recording (a file, or - for stdin); got %d", fs.NArg())
+	}
+	path := fs.Arg(0)
+	lvl, err := parseLevel(*level)
+	if err != nil {
+		return usagef("%v", err)
+	}
+	f, err := ff.format()
+	if err != nil {
+		return err
+	}
+	sp, err := parseSpeed(*speed)
+	if err != nil {
+		return err
+	}
+	dev := *id
+	if dev == "" {
+		dev = idFromPath(path)
+	}
+	if !validID.MatchString(dev) {
+		return usagef("--id %q: use 1–64 of A–Z a–z 0–9 _ . -", dev)
+	}
+	log := newLogger(stderr, lvl)
+	var src io.ReadCloser
+	if path == "-" {
+		src = device.Stdin()
+	} else {
+		file, err := device.OpenFile(path, sp)
+		if err != nil {
+			return err
+		}
+		src = file
+	}
+	if *record != "" {
+		rec, err := device.NewRecorder(src, device.RecordConfig{Dir: *record, Name: dev, Header: f.Directive}, log)
+		if err != nil {
+			src.Close()
+			return err
+		}
+		src = rec
+	}
+	return runDevices(ctx, []deviceRun{{id: dev, src: src, format: f}}, *every, stdout, log)
+}
+
+func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("run", "run --config FILE [flags]", stderr)
+	path := fs.String("config", "", "configuration file (YAML; see configs/breathd.example.yaml)")
+	level := fs.String("log-level", "", "log level, overriding the file's log_level")
+	every := fs.Duration("report-every", 0, "how often to print the counters, overriding report_every (default 5s)")
+	if err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	if *path == "" {
+		return usagef("run needs --config FILE (configs/breathd.example.yaml is a start)")
+	}
+	if fs.NArg() > 0 {
+		return usagef("run takes no arguments besides flags; got %q", fs.Args())
+	}
+	cfg, err := loadConfig(*path)
+	if err != nil {
+		return err
+	}
+	if *level != "" {
+		cfg.LogLevel = *level
+	}
+	lvl, err := parseLevel(cfg.LogLevel)
+	if err != nil {
+		return usagef("%v", err)
+	}
+	if *every > 0 {
+		cfg.ReportEvery = *every
+	}
+	if cfg.ReportEvery == 0 {
+		cfg.ReportEvery = 5 * time.Second
+	}
+	log := newLogger(stderr, lvl)
+	var runs []deviceRun
+	closeAll := func() {
+		for _, r := range runs {
+			r.src.Close()
+		}
+	}
+	for i := range cfg.Devices {
+		d := &cfg.Devices[i]
+		dlog := log.With().Str("device", d.ID).Logger()
+		src, err := openSource(d, dlog)
+		if err != nil {
+			closeAll()
+			return fmt.Errorf("device %s: %w", d.ID, err)
+		}
+		runs = append(runs, deviceRun{id: d.ID, src: src, format: d.Format.format()})
+	}
+	return runDevices(ctx, runs, cfg.ReportEvery, stdout, log)
+}
+
+
+// openSource opens a device's byte source, wrapped in a recorder when the
+// device records.
+func openSource(d *deviceConfig, log zerolog.Logger) (io.ReadCloser, error) {
+	var src io.ReadCloser
+	switch {
+	case d.Serial != nil:
+		s, err := device.OpenSerial(*d.Serial, log)
+		if err != nil {
+			return nil, err
+		}
+		src = s
+	case d.File != nil:
+		f, err := device.OpenFile(d.File.Path, d.File.Speed)
+		if err != nil {
+			return nil, err
+		}
+		src = f
+	default:
+		src = device.Stdin()
+	}
+	if d.Record == nil {
+		return src, nil
+	}
+	f := d.Format.format()
+	rec, err := device.NewRecorder(src, device.RecordConfig{Dir: d.Record.Dir, Name: d.ID,
+		MaxBytes: d.Record.MaxMiB << 20, ClockEvery: d.Record.ClockEvery, Header: f.Directive}, log)
+	if err != nil {
+		src.Close()
+		return nil, err
+	}
+	return rec, nil
+}
+
+// runDevices runs every device in its own goroutine until all end or ctx
+// is done, printing their counters. A device that fails is logged and
+// does not stop the others.
+func runDevices(ctx context.Context, runs []deviceRun, every time.Duration, stdout io.Writer, log zerolog.Logger) error {
+	var mu sync.Mutex
+	report := func(st stream.Status) {
+		mu.Lock()
+		defer mu.Unlock()
+		fmt.Fprintln(stdout, st.String())
+	}
+	errs := make([]error, len(runs))
+	var wg sync.WaitGroup
+	for i, r := range runs {
+		wg.Go(func() {
+			dlog := log.With().Str("device", r.id).Logger()
+			_, err := stream.Run(ctx, r.src, stream.Config{Device: r.id, Format: r.format, Every: every, Report: report, Log: dlog})
+			if err != nil {
+				dlog.Error().Err(err).Msg("device stopped")
+				errs[i] = err
+			}
+		})
+	}
+	wg.Wait()
+	return errors.Join(errs...)
+}
+
+func cmdCheck(args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("check", "check FILE", stderr)
+	if err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	if fs.NArg() != 1 {
+		return usagef("check takes one configuration file; got %d", fs.NArg())
+	}
+	cfg, err := loadConfig(fs.Arg(0))
+	if err != nil {
+		return err
+	}
+	fmt.Fprintf(stdout, "%s is valid: %d device(s)\n", cfg.path, len(cfg.Devices))
+	for _, d := range cfg.Devices {
+		fmt.Fprintf(stdout, "  %-16s %s; format %s", d.ID, describeSource(&d), strings.TrimPrefix(d.Format.format().Directive(), "breathd format"))
+		if d.Record != nil {
+			fmt.Fprintf(stdout, "; recording to %s", d.Record.Dir)
+		}
+		fmt.Fprintln(stdout)
+	}
+	return nil
+}
+
+func describeSource(d *deviceConfig) string {
+	switch {
+	case d.Serial != nil:
+		s := d.Serial
+		baud := s.Baud
+		if baud == 0 {
+			baud = 115200
+		}
+		return fmt.Sprintf("serial %s at %d baud", s.Path, baud)
+	case d.File != nil:
+		if d.File.Speed == 0 {
+			return fmt.Sprintf("file %s as fast as possible", d.File.Path)
+		}
+		return fmt.Sprintf("file %s at %g× speed", d.File.Path, d.File.Speed)
+	}
+	return "standard input"
+}
+
+func cmdPorts(args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("ports", "ports", stderr)
+	if err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	ports, err := device.Ports()
+	if err != nil {
+		return err
+	}
+	if len(ports) == 0 {
+		fmt.Fprintln(stdout, "no serial ports found (a USB adapter appears as /dev/ttyUSB* or /dev/ttyACM*)")
+		return nil
+	}
+	for _, p := range ports {
+		if p.USB {
+			fmt.Fprintf(stdout, "%-20s USB %s:%s serial %q %s\n", p.Path, p.VID, p.PID, p.SerialNumber, p.Product)
+		} else {
+			fmt.Fprintf(stdout, "%-20s\n", p.Path)
+		}
+	}
+	return nil
+}

@@ -1,0 +1,204 @@
+package stream
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"sort"
+	"strings"
+	"sync"
+	"time"
+
+	"breathd/device"
+
+	"github.com/rs/zerolog"
+)
+
+// Config is one device's loop settings.
+type Config struct {
+	Device string        // device id, for logs and reports
+	Format Format        // how to decode the stream
+	Every  time.Duration // how often Report is called while running; default 5 s
+	// Report, if set, is called every Every from a separate goroutine and
+	// once more, with Final set, when Run ends.
+	Report func(Status)
+	Log    zerolog.Logger
+}
+
+// Status is a snapshot of one device's loop.
+type Status struct {
+	Device    string
+	Counts    Counts
+	Health    device.Health // the source's, when it reports one
+	HasHealth bool
+	Elapsed   time.Duration // since Run started
+	Final     bool
+}
+
+// snapshotEvery is how many samples pass between two status snapshots.
+const snapshotEvery = 256
+
+// Run reads src until it ends or ctx is done, decoding it with cfg.Format.
+// It closes src when ctx is done so that a blocked read returns, and
+// always closes it before returning. The end of src and a cancelled ctx
+// are clean ends (nil error); a stream that cannot be decoded, or a read
+// error, is returned.
+func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
+	dec, err := NewDecoder(src, cfg.Format)
+	if err != nil {
+		src.Close()
+		return Status{Device: cfg.Device}, err
+	}
+	l := &loop{cfg: cfg, src: src, dec: dec, start: time.Now()}
+	if p, ok := src.(device.Paced); ok {
+		l.pacer = p.Pacer()
+	}
+	stop := context.AfterFunc(ctx, func() { src.Close() })
+	defer stop()
+	var wg sync.WaitGroup
+	done := make(chan struct{})
+	if cfg.Report != nil {
+		every := cfg.Every
+		if every <= 0 {
+			every = 5 * time.Second
+		}
+		wg.Go(func() { l.reportEvery(every, done) })
+	}
+	err = l.run(ctx)
+	close(done)
+	wg.Wait()
+	src.Close()
+	st := l.status()
+	st.Final = true
+	if cfg.Report != nil {
+		cfg.Report(st)
+	}
+	return st, err
+}
+
+type loop struct {
+	cfg   Config
+	src   io.ReadCloser
+	dec   *Decoder
+	pacer *device.Pacer
+	start time.Time
+
+	mu   sync.Mutex
+	snap Counts
+}
+
+func (l *loop) run(ctx context.Context) error {
+	var s Sample
+	var n int
+	for {
+		err := l.dec.Decode(&s)
+		if err != nil {
+			var le *LineError
+			switch {
+			case errors.As(err, &le):
+				l.badLine(le)
+				continue
+			case errors.Is(err, io.EOF), ctx.Err() != nil:
+				l.snapshot()
+				return nil
+			}
+			l.snapshot()
+			var fe *FormatError
+			if errors.As(err, &fe) {
+				return fmt.Errorf("%s: cannot decode the stream: %w", l.cfg.Device, err)
+			}
+			return fmt.Errorf("%s: read: %w", l.cfg.Device, err)
+		}
+		if l.pacer != nil {
+			if l.pacer.Wait(ctx, s.T) != nil {
+				l.snapshot()
+				return nil
+			}
+		}
+		if n++; n == snapshotEvery {
+			n = 0
+			l.snapshot()
+		}
+	}
+}
+
+// badLine logs the first bad lines of each cause, then every 1000th.
+func (l *loop) badLine(le *LineError) {
+	c := l.dec.counts.Bad[le.Cause]
+	if c <= 3 || c%1000 == 0 {
+		l.cfg.Log.Debug().Int64("line", le.Line).Str("cause", le.Cause.String()).Int64("count", c).Msg("bad line skipped")
+	}
+}
+
+func (l *loop) snapshot() {
+	l.mu.Lock()
+	l.snap = l.dec.counts
+	l.mu.Unlock()
+}
+
+func (l *loop) status() Status {
+	l.mu.Lock()
+	st := Status{Device: l.cfg.Device, Counts: l.snap, Elapsed: time.Since(l.start)}
+	l.mu.Unlock()
+	if h, ok := l.src.(device.HealthReporter); ok {
+		st.Health, st.HasHealth = h.Health(), true
+	}
+	return st
+}
+
+func (l *loop) reportEvery(every time.Duration, done <-chan struct{}) {
+	t := time.NewTicker(every)
+	defer t.Stop()
+	for {
+		select {
+		case <-done:
+			return
+		case <-t.C:
+			l.cfg.Report(l.status())
+		}
+	}
+}
+
+// String renders a status as one console line.
+func (st Status) String() string {
+	c := &st.Counts
+	var b strings.Builder
+	fmt.Fprintf(&b, "%s  samples %d", st.Device, c.Samples)
+	if r := c.RateHz(); r > 0 {
+		fmt.Fprintf(&b, "  rate %.1f Hz", r)
+	}
+	if c.Samples > 0 {
+		fmt.Fprintf(&b, "  span %.1f s", c.LastT-c.FirstT)
+	}
+	fmt.Fprintf(&b, "  bad %d", c.BadTotal())
+	if c.BadTotal() > 0 {
+		b.WriteString(" (" + badCauses(c) + ")")
+	}
+	fmt.Fprintf(&b, "  gaps %d", c.Gaps)
+	if c.Resyncs > 0 {
+		fmt.Fprintf(&b, "  clock resets %d", c.Resyncs)
+	}
+	if st.HasHealth && (st.Health.Outages > 0 || !st.Health.Connected) {
+		state := "connected"
+		if !st.Health.Connected {
+			state = "LOST"
+		}
+		fmt.Fprintf(&b, "  port %s, lost %d×", state, st.Health.Outages)
+	}
+	if st.Final {
+		b.WriteString("  (end)")
+	}
+	return b.String()
+}
+
+func badCauses(c *Counts) string {
+	var parts []string
+	for i, n := range c.Bad {
+		if n > 0 {
+			parts = append(parts, fmt.Sprintf("%s %d", Cause(i), n))
+		}
+	}
+	sort.Strings(parts)
+	return strings.Join(parts, ", ")
+}
