@@ -1,6 +1,7 @@
 package device
 
 import (
+	"compress/gzip"
 	"io"
 	"os"
 	"path/filepath"
@@ -132,5 +133,23 @@ func TestFileGzipAndPacer(t *testing.T) {
 	}
 	if _, err := OpenFile(dir, 0); err == nil {
 		t.Error("directory accepted as a recording")
+	}
+}
+
+func TestFileReadsGzip(t *testing.T) {
+	p := filepath.Join(t.TempDir(), "a.txt.gz")
+	var buf strings.Builder
+	zw := gzip.NewWriter(&buf)
+	zw.Write([]byte("t,paw,flow\n0,5,0\n"))
+	zw.Close()
+	os.WriteFile(p, []byte(buf.String()), 0o600)
+	f, err := OpenFile(p, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	b, _ := io.ReadAll(f)
+	if string(b) != "t,paw,flow\n0,5,0\n" {
+		t.Errorf("gzip read %q", b)
 	}
 }

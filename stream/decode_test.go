@@ -488,3 +488,43 @@ func BenchmarkDecodeBaseline(b *testing.B) {
 	_ = sink
 	b.ReportMetric(float64(b.N)/b.Elapsed().Seconds(), "lines/s")
 }
+
+// liveSource hands out two lines per Read, like a serial port delivering
+// a burst, and fails the test if the decoder reads again while a line it
+// was given has not been returned yet (on a real port that read blocks).
+type liveSource struct {
+	t     *testing.T
+	lines []string
+	sent  int
+	taken *int
+}
+
+func (r *liveSource) Read(p []byte) (int, error) {
+	if *r.taken < r.sent {
+		r.t.Fatalf("decoder read again with line %d of %d waiting", *r.taken+1, r.sent)
+	}
+	if r.sent == len(r.lines) {
+		return 0, io.EOF
+	}
+	n := copy(p, r.lines[r.sent]+r.lines[r.sent+1])
+	r.sent += 2
+	return n, nil
+}
+
+// TestNoReadWhileLineWaits: a decoded line is returned before the decoder
+// reads again, so a live stream is never delayed by a line.
+func TestNoReadWhileLineWaits(t *testing.T) {
+	taken := 0
+	src := &liveSource{t: t, taken: &taken}
+	for i := 0; i < 100; i++ {
+		src.lines = append(src.lines, strconv.FormatFloat(float64(i)/100, 'f', 2, 64)+",5.0,0.0\n")
+	}
+	d, _ := NewDecoder(src, Format{})
+	var s Sample
+	for d.Decode(&s) == nil {
+		taken++
+	}
+	if taken != 100 {
+		t.Errorf("decoded %d lines", taken)
+	}
+}

@@ -1,5 +1,7 @@
 package stream
 
+import "bytes"
+
 // fastLine decodes the next line in place when it is a plain data line:
 // decimals of at most 15 digits without an exponent, separated by the
 // delimiter, ended by LF or CRLF. It scans the line once, splitting and
@@ -10,7 +12,9 @@ package stream
 // line not yet complete in the buffer — returns ok false without consuming
 // input, and the general path takes the line.
 func (d *Decoder) fastLine(vals *[5]float64) bool {
-	if d.end-d.start < MaxLineBytes+2 && d.readErr == nil {
+	// Read more only when no complete line is waiting: on a live source
+	// a read blocks, and a waiting line must not wait for the next one.
+	if d.end-d.start < MaxLineBytes+2 && d.readErr == nil && bytes.IndexByte(d.buf[d.start:d.end], '\n') < 0 {
 		d.fill()
 	}
 	b := d.buf[d.start:d.end]

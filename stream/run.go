@@ -36,21 +36,19 @@ type Status struct {
 	Final     bool
 }
 
-// snapshotEvery is how many samples pass between two status snapshots.
-const snapshotEvery = 256
-
 // Run reads src until it ends or ctx is done, decoding it with cfg.Format.
 // It closes src when ctx is done so that a blocked read returns, and
 // always closes it before returning. The end of src and a cancelled ctx
 // are clean ends (nil error); a stream that cannot be decoded, or a read
 // error, is returned.
 func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
-	dec, err := NewDecoder(src, cfg.Format)
+	l := &loop{cfg: cfg, src: src, start: time.Now()}
+	dec, err := NewDecoder(snapReader{l}, cfg.Format)
 	if err != nil {
 		src.Close()
 		return Status{Device: cfg.Device}, err
 	}
-	l := &loop{cfg: cfg, src: src, dec: dec, start: time.Now()}
+	l.dec = dec
 	if p, ok := src.(device.Paced); ok {
 		l.pacer = p.Pacer()
 	}
@@ -90,7 +88,6 @@ type loop struct {
 
 func (l *loop) run(ctx context.Context) error {
 	var s Sample
-	var n int
 	for {
 		err := l.dec.Decode(&s)
 		if err != nil {
@@ -116,10 +113,6 @@ func (l *loop) run(ctx context.Context) error {
 				return nil
 			}
 		}
-		if n++; n == snapshotEvery {
-			n = 0
-			l.snapshot()
-		}
 	}
 }
 
@@ -129,6 +122,16 @@ func (l *loop) badLine(le *LineError) {
 	if c <= 3 || c%1000 == 0 {
 		l.cfg.Log.Debug().Int64("line", le.Line).Str("cause", le.Cause.String()).Int64("count", c).Msg("bad line skipped")
 	}
+}
+
+// snapReader takes a counters snapshot before every read of the source,
+// so the reporter sees every sample decoded before the loop waits for
+// more, at no cost per sample.
+type snapReader struct{ l *loop }
+
+func (r snapReader) Read(p []byte) (int, error) {
+	r.l.snapshot()
+	return r.l.src.Read(p)
 }
 
 func (l *loop) snapshot() {

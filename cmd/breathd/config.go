@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"errors"
 	"fmt"
+	"io"
 	"os"
 	"regexp"
 	"strconv"
@@ -116,7 +117,7 @@ func parseConfig(path string, data []byte) (*config, error) {
 	dec := yaml.NewDecoder(bytes.NewReader(data))
 	dec.KnownFields(true)
 	if err := dec.Decode(c); err != nil {
-		if errors.Is(err, errEOF) {
+		if errors.Is(err, io.EOF) {
 			return nil, fmt.Errorf("%s: the file is empty", path)
 		}
 		return nil, c.yamlError(err)

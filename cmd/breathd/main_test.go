@@ -1,0 +1,208 @@
+package main
+
+import (
+	"bufio"
+	"bytes"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"syscall"
+	"testing"
+	"time"
+
+	"github.com/creack/pty"
+)
+
+// TestMain lets a test run the real binary: the test executable re-runs
+// itself with BREATHD_AS_MAIN=1 and the command line after "--".
+func TestMain(m *testing.M) {
+	if os.Getenv("BREATHD_AS_MAIN") == "1" {
+		os.Exit(run(os.Args[1:], os.Stdout, os.Stderr))
+	}
+	os.Exit(m.Run())
+}
+
+func breathd(args ...string) *exec.Cmd {
+	cmd := exec.Command(os.Args[0], args...)
+	cmd.Env = append(os.Environ(), "BREATHD_AS_MAIN=1")
+	cmd.Dir = "../.."
+	return cmd
+}
+
+// runCLI runs a command line in-process from the project's top directory.
+func runCLI(t *testing.T, args ...string) (code int, stdout, stderr string) {
+	t.Helper()
+	t.Chdir("../..")
+	var out, errb bytes.Buffer
+	code = run(args, &out, &errb)
+	return code, out.String(), errb.String()
+}
+
+func TestReplayCountsBadLinesExactly(t *testing.T) {
+	code, out, errs := runCLI(t, "replay", "--speed", "max", "testdata/bad-lines.txt")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	want := "bad-lines  samples 500  rate 50.0 Hz  span 10.0 s  bad 7 (field_count 1, not_finite 2, not_number 1, out_of_range 1, time_backwards 1, too_long 1)  gaps 0  (end)\n"
+	if out != want {
+		t.Errorf("output\n%q\nwant\n%q", out, want)
+	}
+}
+
+// TestUserErrors: every mistake a new user can make is one clear line on
+// stderr and a non-zero exit, never a stack trace.
+func TestUserErrors(t *testing.T) {
+	dir := t.TempDir()
+	write := func(name, text string) string {
+		p := filepath.Join(dir, name)
+		os.WriteFile(p, []byte(text), 0o600)
+		return p
+	}
+	typo := write("typo.yaml", "devices:\n  - id: a\n    serial:\n      path: /dev/x\n      bod: 3\n")
+	badValue := write("value.yaml", "devices:\n  - id: a\n    stdin: true\n    format:\n      gap_limit: 5\n")
+	absent := write("absent.yaml", "devices:\n  - id: a\n    serial:\n      path: /dev/breathd-no-such-port\n")
+	empty := write("empty.yaml", "")
+	tests := []struct {
+		name string
+		args []string
+		code int
+		want string // in the one line on stderr
+	}{
+		{"no verb", nil, 2, "no verb given"},
+		{"unknown verb", []string{"fly"}, 2, `unknown verb "fly"`},
+		{"missing file", []string{"replay", "nope.txt"}, 1, "recording nope.txt does not exist"},
+		{"bad flag", []string{"replay", "--bogus", "x"}, 2, "flag provided but not defined: -bogus"},
+		{"bad speed", []string{"replay", "--speed", "fast", "x"}, 2, `--speed "fast"`},
+		{"bad unit", []string{"replay", "--unit", "paw=psi", "x"}, 2, `unknown unit "psi" for paw`},
+		{"no t no rate", []string{"replay", "--columns", "paw,flow", "x"}, 2, "set rate_hz"},
+		{"two files", []string{"replay", "a", "b"}, 2, "replay takes one recording"},
+		{"run without config", []string{"run"}, 2, "run needs --config FILE"},
+		{"config typo", []string{"check", typo}, 1, typo + `:5: unknown key "bod" in devices[0].serial`},
+		{"config bad value", []string{"check", badValue}, 1, badValue + `:5: devices[0].format.gap_limit: "5" is not a duration`},
+		{"config empty", []string{"check", empty}, 1, "the file is empty"},
+		{"config missing", []string{"check", "/nonexistent.yaml"}, 1, "does not exist"},
+		{"absent port", []string{"run", "--config", absent}, 1, "serial port /dev/breathd-no-such-port does not exist: check the cable"},
+		{"not a recording", []string{"replay", "--speed", "max", "testdata"}, 1, "is a directory"},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			code, _, errs := runCLI(t, tc.args...)
+			if code != tc.code {
+				t.Errorf("exit %d, want %d", code, tc.code)
+			}
+			lines := strings.Split(strings.TrimSpace(errs), "\n")
+			last := lines[len(lines)-1]
+			if !strings.HasPrefix(last, "breathd: ") || !strings.Contains(last, tc.want) {
+				t.Errorf("stderr %q, want one line containing %q", errs, tc.want)
+			}
+			if strings.Contains(errs, "goroutine ") || strings.Contains(errs, "panic") {
+				t.Errorf("stack trace on stderr: %s", errs)
+			}
+		})
+	}
+}
+
+func TestHelpCarriesAdvisory(t *testing.T) {
+	for _, args := range [][]string{{"help"}, {"replay", "-h"}, {"run", "-h"}} {
+		code, out, errs := runCLI(t, args...)
+		if code != 0 || !strings.Contains(out+errs, "not a medical device") {
+			t.Errorf("%v: exit %d, advisory missing", args, code)
+		}
+	}
+}
+
+func TestCheckExampleConfig(t *testing.T) {
+	code, out, errs := runCLI(t, "check", "configs/breathd.example.yaml")
+	if code != 0 || !strings.Contains(out, "bed1") || !strings.Contains(out, "serial /dev/ttyUSB0 at 115200 baud") {
+		t.Fatalf("exit %d\n%s%s", code, out, errs)
+	}
+}
+
+// TestRecordingReplaysWithoutFlags: a stream in an unusual format, recorded
+// while replayed with flags, replays from the recording with no flags.
+func TestRecordingReplaysWithoutFlags(t *testing.T) {
+	dir := t.TempDir()
+	src := filepath.Join(dir, "odd.txt")
+	var b strings.Builder
+	for i := 0; i < 300; i++ {
+		// semicolons, mbar, L/s, no time column, flow printed positive outwards
+		b.WriteString(strings.Join([]string{ftoa(5 + float64(i%50)/10), ftoa(-0.5 + float64(i%100)/100)}, ";") + "\n")
+	}
+	os.WriteFile(src, []byte(b.String()), 0o600)
+	rec := filepath.Join(dir, "rec")
+	code, first, errs := runCLI(t, "replay", "--speed", "max", "--record", rec, "--columns", "paw,flow", "--rate-hz", "50",
+		"--unit", "paw=mbar", "--unit", "flow=L/s", "--flow-sign", "-1", src)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	files, _ := filepath.Glob(filepath.Join(rec, "odd-*.txt"))
+	if len(files) != 1 {
+		t.Fatalf("recordings %v", files)
+	}
+	code, second, errs := runCLI(t, "replay", "--speed", "max", "--id", "odd", files[0])
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	if first != second || !strings.Contains(first, "samples 300  rate 50.0 Hz") {
+		t.Errorf("first run %q, replay of the recording %q", first, second)
+	}
+}
+
+func ftoa(v float64) string { return strings.TrimRight(strings.TrimRight(strconvF(v), "0"), ".") }
+
+func strconvF(v float64) string { return string(appendF(nil, v)) }
+
+// TestRunReadsPtyAndStopsOnSIGTERM runs the real binary on a pty-backed
+// serial device, checks it decodes what the "ventilator" writes, and that
+// SIGTERM ends it with exit 0.
+func TestRunReadsPtyAndStopsOnSIGTERM(t *testing.T) {
+	master, slave, err := pty.Open()
+	if err != nil {
+		t.Skipf("no pseudo-terminal here: %v", err)
+	}
+	defer master.Close()
+	name := slave.Name()
+	slave.Close()
+	cfg := filepath.Join(t.TempDir(), "pty.yaml")
+	os.WriteFile(cfg, []byte("report_every: 100ms\ndevices:\n  - id: bed7\n    serial:\n      path: "+name+"\n"), 0o600)
+	cmd := breathd("run", "--config", cfg)
+	stdout, _ := cmd.StdoutPipe()
+	var stderr bytes.Buffer
+	cmd.Stderr = &stderr
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	lines := bufio.NewScanner(stdout)
+	time.Sleep(300 * time.Millisecond) // let it open the port
+	go func() {
+		for i := 0; i < 200; i++ {
+			master.WriteString(string(appendLine(nil, float64(i)/100)))
+		}
+	}()
+	seen := false
+	deadline := time.After(10 * time.Second)
+	found := make(chan bool)
+	go func() {
+		for lines.Scan() {
+			if strings.Contains(lines.Text(), "bed7  samples 200") {
+				found <- true
+				return
+			}
+		}
+		found <- false
+	}()
+	select {
+	case seen = <-found:
+	case <-deadline:
+	}
+	if !seen {
+		cmd.Process.Kill()
+		t.Fatalf("never saw 200 samples; stderr:\n%s", stderr.String())
+	}
+	cmd.Process.Signal(syscall.SIGTERM)
+	err = cmd.Wait()
+	if err != nil {
+		t.Fatalf("after SIGTERM: %v; stderr:\n%s", err, stderr.String())
+	}
+}
