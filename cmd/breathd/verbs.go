@@ -130,7 +130,6 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 	return runDevices(ctx, runs, cfg.ReportEvery, stdout, log)
 }
 
-
 // openSource opens a device's byte source, wrapped in a recorder when the
 // device records.
 func openSource(d *deviceConfig, log zerolog.Logger) (io.ReadCloser, error) {
