@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"breathd/device"
+	"breathd/mechanics"
 	"breathd/stream"
 
 	"go.yaml.in/yaml/v3"
@@ -24,6 +25,11 @@ type config struct {
 	ReportEvery time.Duration  `yaml:"report_every"`
 	Devices     []deviceConfig `yaml:"devices"`
 
+	yamlFile `yaml:"-"`
+}
+
+// yamlFile is a YAML document with what its error messages need.
+type yamlFile struct {
 	path string     // the file it came from
 	root *yaml.Node // for line numbers
 }
@@ -33,6 +39,7 @@ type deviceConfig struct {
 	Serial *device.SerialConfig `yaml:"serial"`
 	File   *fileSource          `yaml:"file"`
 	Stdin  bool                 `yaml:"stdin"`
+	Sim    *simSource           `yaml:"simulate"`
 	Format formatConfig         `yaml:"format"`
 	Record *recordConfig        `yaml:"record"`
 }
@@ -40,6 +47,15 @@ type deviceConfig struct {
 type fileSource struct {
 	Path  string  `yaml:"path"`
 	Speed float64 `yaml:"speed"` // 0: as fast as possible
+}
+
+// simSource is a simulated ventilator as a device.
+type simSource struct {
+	Scenario string  `yaml:"scenario"` // scenario file; relative paths are from the working directory
+	Speed    float64 `yaml:"speed"`    // 1 real time (default), N times faster
+	Seed     uint64  `yaml:"seed"`     // overrides the scenario's seed when set
+
+	scenario mechanics.Scenario
 }
 
 type formatConfig struct {
@@ -110,29 +126,47 @@ func loadConfig(path string) (*config, error) {
 }
 
 func parseConfig(path string, data []byte) (*config, error) {
-	c := &config{path: path, root: new(yaml.Node)}
-	if err := yaml.Unmarshal(data, c.root); err != nil {
-		return nil, c.yamlError(err)
+	c := &config{}
+	f, err := decodeStrict(path, data, c)
+	if err != nil {
+		return nil, err
 	}
-	dec := yaml.NewDecoder(bytes.NewReader(data))
-	dec.KnownFields(true)
-	if err := dec.Decode(c); err != nil {
-		if errors.Is(err, io.EOF) {
-			return nil, fmt.Errorf("%s: the file is empty", path)
-		}
-		return nil, c.yamlError(err)
-	}
-	if err := c.validate(); err != nil {
-		var fe *fieldError
-		if errors.As(err, &fe) {
-			return nil, fmt.Errorf("%s:%d: %v", path, c.line(fe.path), fe)
-		}
-		return nil, fmt.Errorf("%s: %w", path, err)
+	c.yamlFile = *f
+	if err := f.explain(c.validate()); err != nil {
+		return nil, err
 	}
 	return c, nil
 }
 
-var errEOF = errors.New("EOF")
+// decodeStrict decodes YAML into out; an unknown key is an error. Errors
+// name the file, the line and the key.
+func decodeStrict(path string, data []byte, out any) (*yamlFile, error) {
+	f := &yamlFile{path: path, root: new(yaml.Node)}
+	if err := yaml.Unmarshal(data, f.root); err != nil {
+		return nil, f.yamlError(err)
+	}
+	dec := yaml.NewDecoder(bytes.NewReader(data))
+	dec.KnownFields(true)
+	if err := dec.Decode(out); err != nil {
+		if errors.Is(err, io.EOF) {
+			return nil, fmt.Errorf("%s: the file is empty", path)
+		}
+		return nil, f.yamlError(err)
+	}
+	return f, nil
+}
+
+// explain adds the file and line to a validation error.
+func (f *yamlFile) explain(err error) error {
+	if err == nil {
+		return nil
+	}
+	var fe *fieldError
+	if errors.As(err, &fe) {
+		return fmt.Errorf("%s:%d: %v", f.path, f.line(fe.path), fe)
+	}
+	return fmt.Errorf("%s: %w", f.path, err)
+}
 
 var (
 	reUnknown = regexp.MustCompile(`line (\d+): field (\S+) not found in type`)
@@ -140,10 +174,7 @@ var (
 )
 
 // yamlError rewrites yaml.v3's messages as file:line: key: problem.
-func (c *config) yamlError(err error) error {
-	if err.Error() == "EOF" {
-		return errEOF
-	}
+func (c *yamlFile) yamlError(err error) error {
 	var te *yaml.TypeError
 	if errors.As(err, &te) && len(te.Errors) > 0 {
 		msg := te.Errors[0]
@@ -184,7 +215,7 @@ func typeProblem(msg string) string {
 }
 
 // under names the section an unknown key stands in.
-func (c *config) under(line int) string {
+func (c *yamlFile) under(line int) string {
 	if k := c.keyAt(line); strings.Contains(k, ".") || strings.Contains(k, "[") {
 		if i := strings.LastIndexAny(k, ".["); i > 0 {
 			return " in " + k[:i]
@@ -194,7 +225,7 @@ func (c *config) under(line int) string {
 }
 
 // keyAt returns the key path of the key or value at a line.
-func (c *config) keyAt(line int) string {
+func (c *yamlFile) keyAt(line int) string {
 	var found []any
 	var walk func(n *yaml.Node, path []any)
 	walk = func(n *yaml.Node, path []any) {
@@ -230,7 +261,7 @@ func (c *config) keyAt(line int) string {
 }
 
 // line returns the line of a key path, or of its nearest existing parent.
-func (c *config) line(path []any) int {
+func (c *yamlFile) line(path []any) int {
 	n := c.root
 	if n.Kind == yaml.DocumentNode && len(n.Content) > 0 {
 		n = n.Content[0]
@@ -309,8 +340,22 @@ func (d *deviceConfig) validate(i int) error {
 	if d.Stdin {
 		sources++
 	}
+	if d.Sim != nil {
+		sources++
+		if d.Sim.Speed < 0 {
+			return field(errors.New("speed must be 1 (real time) or more"), "devices", i, "simulate", "speed")
+		}
+		sc, err := loadScenario(d.Sim.Scenario)
+		if err != nil {
+			return field(err, "devices", i, "simulate", "scenario")
+		}
+		if d.Sim.Seed != 0 {
+			sc.Seed = d.Sim.Seed
+		}
+		d.Sim.scenario = sc
+	}
 	if sources != 1 {
-		return field(fmt.Errorf("give exactly one source (serial, file or stdin); found %d", sources), "devices", i)
+		return field(fmt.Errorf("give exactly one source (serial, file, stdin or simulate); found %d", sources), "devices", i)
 	}
 	if err := d.Format.format().Validate(); err != nil {
 		return field(err, "devices", i, "format")

@@ -31,6 +31,7 @@ NOTICE: %s
 Usage:
   breathd run --config FILE        run the devices of a configuration file
   breathd replay [flags] FILE      run on a recorded stream (FILE or - for stdin)
+  breathd simulate [flags]         write a simulated patient's stream to a file, stdout or a pseudo-terminal
   breathd check FILE               validate a configuration file and show what it would run
   breathd ports                    list serial ports with their USB details
   breathd version                  print the version
@@ -77,6 +78,8 @@ func dispatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		return cmdRun(ctx, rest, stdout, stderr)
 	case "replay":
 		return cmdReplay(ctx, rest, stdout, stderr)
+	case "simulate":
+		return cmdSimulate(ctx, rest, stdout, stderr)
 	case "check":
 		return cmdCheck(rest, stdout, stderr)
 	case "ports":

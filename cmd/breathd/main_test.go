@@ -20,8 +20,12 @@ func TestMain(m *testing.M) {
 	if os.Getenv("BREATHD_AS_MAIN") == "1" {
 		os.Exit(run(os.Args[1:], os.Stdout, os.Stderr))
 	}
+	root, _ = filepath.Abs("../..")
 	os.Exit(m.Run())
 }
+
+// root is the project's top directory.
+var root string
 
 func breathd(args ...string) *exec.Cmd {
 	cmd := exec.Command(os.Args[0], args...)
@@ -33,7 +37,7 @@ func breathd(args ...string) *exec.Cmd {
 // runCLI runs a command line in-process from the project's top directory.
 func runCLI(t *testing.T, args ...string) (code int, stdout, stderr string) {
 	t.Helper()
-	t.Chdir("../..")
+	t.Chdir(root)
 	var out, errb bytes.Buffer
 	code = run(args, &out, &errb)
 	return code, out.String(), errb.String()

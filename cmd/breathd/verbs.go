@@ -147,6 +147,12 @@ func openSource(d *deviceConfig, log zerolog.Logger) (io.ReadCloser, error) {
 			return nil, err
 		}
 		src = f
+	case d.Sim != nil:
+		speed := d.Sim.Speed
+		if speed == 0 {
+			speed = 1
+		}
+		src = device.NewSim(d.Sim.scenario, device.SimFormat{Delimiter: ',', Header: true}, speed, nil)
 	default:
 		src = device.Stdin()
 	}
@@ -203,7 +209,11 @@ func cmdCheck(args []string, stdout, stderr io.Writer) error {
 	}
 	fmt.Fprintf(stdout, "%s is valid: %d device(s)\n", cfg.path, len(cfg.Devices))
 	for _, d := range cfg.Devices {
-		fmt.Fprintf(stdout, "  %-16s %s; format %s", d.ID, describeSource(&d), strings.TrimPrefix(d.Format.format().Directive(), "breathd format"))
+		format := strings.TrimSpace(strings.TrimPrefix(d.Format.format().Directive(), "breathd format"))
+		if format == "" {
+			format = "detected from the stream"
+		}
+		fmt.Fprintf(stdout, "  %-16s %s; format %s", d.ID, describeSource(&d), format)
 		if d.Record != nil {
 			fmt.Fprintf(stdout, "; recording to %s", d.Record.Dir)
 		}
@@ -226,6 +236,8 @@ func describeSource(d *deviceConfig) string {
 			return fmt.Sprintf("file %s as fast as possible", d.File.Path)
 		}
 		return fmt.Sprintf("file %s at %g× speed", d.File.Path, d.File.Speed)
+	case d.Sim != nil:
+		return fmt.Sprintf("simulated patient %q from %s", d.Sim.scenario.Name, d.Sim.Scenario)
 	}
 	return "standard input"
 }

@@ -1,0 +1,246 @@
+package mechanics
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"sort"
+	"strings"
+	"time"
+)
+
+// Ventilation modes of the simulator.
+const (
+	ModeVC = "vc" // volume control: set flow, optional end-inspiratory pause
+	ModePC = "pc" // pressure control: set pressure above PEEP for Ti, with a rise time
+	ModePS = "ps" // pressure support: triggered by the patient, cycled at a fraction of peak flow
+)
+
+// Settings are the patient's lung, the ventilator's settings and the
+// patient's effort, as they hold for one breath. Units are in the comments.
+type Settings struct {
+	Mode  string  `yaml:"mode"`  // vc, pc or ps
+	R     float64 `yaml:"r"`     // airway resistance, cmH2O·s/L
+	C     float64 `yaml:"c"`     // compliance, mL/cmH2O
+	PEEP  float64 `yaml:"peep"`  // set PEEP, cmH2O
+	RR    float64 `yaml:"rr"`    // set rate, 1/min (the backup rate in ps)
+	VT    float64 `yaml:"vt"`    // vc: tidal volume, mL
+	Ti    float64 `yaml:"ti"`    // vc, pc: inspiratory time including any pause, s
+	Pause float64 `yaml:"pause"` // vc: end-inspiratory pause, s
+	// PauseEvery makes the pause happen on every Nth breath only (0 or 1:
+	// every breath).
+	PauseEvery int     `yaml:"pause_every"`
+	Flow       string  `yaml:"flow"`    // vc: constant (default) or decelerating (to 25 % of peak)
+	PInsp      float64 `yaml:"pinsp"`   // pc, ps: pressure above PEEP, cmH2O
+	Rise       float64 `yaml:"rise"`    // pc, ps: time to reach it, s
+	Cycle      float64 `yaml:"cycle"`   // ps: end inspiration when flow falls below this fraction of its peak; default 0.25
+	Trigger    float64 `yaml:"trigger"` // ps: patient flow that triggers a breath, L/min; default 2
+	// Patient effort: a half-sine muscle pressure of EffortP cmH2O lasting
+	// EffortTime s, EffortRate times a minute (0: a passive patient).
+	EffortRate float64 `yaml:"effort_rate"`
+	EffortP    float64 `yaml:"effort_p"`
+	EffortTime float64 `yaml:"effort_time"`
+	Leak       float64 `yaml:"leak"` // leak flow per airway pressure, L/min per cmH2O
+}
+
+// numeric lists the settings a timeline may change, with their addresses.
+func (s *Settings) numeric() map[string]*float64 {
+	return map[string]*float64{
+		"r": &s.R, "c": &s.C, "peep": &s.PEEP, "rr": &s.RR, "vt": &s.VT, "ti": &s.Ti,
+		"pause": &s.Pause, "pinsp": &s.PInsp, "rise": &s.Rise, "cycle": &s.Cycle, "trigger": &s.Trigger,
+		"effort_rate": &s.EffortRate, "effort_p": &s.EffortP, "effort_time": &s.EffortTime, "leak": &s.Leak,
+	}
+}
+
+// Validate reports the first setting outside what the model handles.
+func (s *Settings) Validate() error {
+	switch s.Mode {
+	case ModeVC, ModePC, ModePS:
+	default:
+		return fmt.Errorf("mode %q: want vc, pc or ps", s.Mode)
+	}
+	checks := []struct {
+		name     string
+		v        float64
+		min, max float64
+	}{
+		{"r", s.R, 0.5, 200}, {"c", s.C, 1, 500}, {"peep", s.PEEP, 0, 40}, {"rr", s.RR, 1, 120},
+		{"pause", s.Pause, 0, 5}, {"rise", s.Rise, 0, 2}, {"effort_rate", s.EffortRate, 0, 80},
+		{"effort_p", s.EffortP, 0, 40}, {"effort_time", s.EffortTime, 0, 3}, {"leak", s.Leak, 0, 5},
+		{"cycle", s.Cycle, 0, 0.9}, {"trigger", s.Trigger, 0, 30},
+	}
+	for _, c := range checks {
+		if math.IsNaN(c.v) || c.v < c.min || c.v > c.max {
+			return fmt.Errorf("%s %g out of range (%g…%g)", c.name, c.v, c.min, c.max)
+		}
+	}
+	if s.Mode != ModePS && (s.Ti <= 0 || s.Ti >= 60/s.RR) {
+		return fmt.Errorf("ti %g s must be above 0 and below the breath period %.2f s", s.Ti, 60/s.RR)
+	}
+	if s.Mode == ModeVC {
+		if s.VT < 20 || s.VT > 2500 {
+			return fmt.Errorf("vt %g mL out of range (20…2500)", s.VT)
+		}
+		if s.Pause >= s.Ti {
+			return fmt.Errorf("pause %g s must be shorter than ti %g s", s.Pause, s.Ti)
+		}
+		if s.Flow != "" && s.Flow != "constant" && s.Flow != "decelerating" {
+			return fmt.Errorf("flow %q: want constant or decelerating", s.Flow)
+		}
+	} else if s.PInsp <= 0 || s.PInsp > 60 {
+		return fmt.Errorf("pinsp %g cmH2O out of range (above 0, up to 60)", s.PInsp)
+	}
+	if s.EffortRate > 0 && (s.EffortP <= 0 || s.EffortTime <= 0) {
+		return errors.New("effort_rate needs effort_p and effort_time")
+	}
+	if s.EffortRate > 0 && s.EffortTime >= 60/s.EffortRate {
+		return fmt.Errorf("effort_time %g s must be shorter than the effort period %.2f s", s.EffortTime, 60/s.EffortRate)
+	}
+	return nil
+}
+
+// Sensor describes the ventilator's measurement: noise, drift, printing.
+type Sensor struct {
+	PawNoise  float64 `yaml:"paw_noise"`  // σ of Gaussian pressure noise, cmH2O
+	FlowNoise float64 `yaml:"flow_noise"` // σ of Gaussian flow noise, L/min
+	FlowDrift float64 `yaml:"flow_drift"` // flow offset drift, L/min per hour
+	Digits    int     `yaml:"digits"`     // decimals printed for paw and flow; default 2
+}
+
+// Change is one event on a scenario's timeline: from At, the settings in
+// Set (keys as in Settings' YAML names) move to their new values, linearly
+// over Ramp or at once; Mode switches the mode; Disconnect opens the
+// circuit for that long. A ramp starts from the value in effect at At.
+type Change struct {
+	At         time.Duration      `yaml:"at"`
+	Ramp       time.Duration      `yaml:"ramp"`
+	Set        map[string]float64 `yaml:"set"`
+	Mode       string             `yaml:"mode"`
+	Disconnect time.Duration      `yaml:"disconnect"`
+}
+
+// Patient is what predicted body weight needs.
+type Patient struct {
+	Sex      string  `yaml:"sex"`       // male or female
+	HeightCm float64 `yaml:"height_cm"` // cm
+}
+
+// Scenario is an invented simulated patient and what happens to them.
+type Scenario struct {
+	Name        string        `yaml:"name"`
+	Description string        `yaml:"description"`
+	Seed        uint64        `yaml:"seed"`
+	RateHz      float64       `yaml:"rate_hz"`  // samples per second; default 100
+	Duration    time.Duration `yaml:"duration"` // default 10 min
+	Patient     Patient       `yaml:"patient"`
+	Settings    Settings      `yaml:"settings"`
+	Sensor      Sensor        `yaml:"sensor"`
+	Timeline    []Change      `yaml:"timeline"`
+}
+
+// Defaults fills unset fields: 100 Hz, 10 minutes, 2 printed digits, a
+// 25 % cycle and a 2 L/min trigger.
+func (sc *Scenario) Defaults() {
+	if sc.RateHz == 0 {
+		sc.RateHz = 100
+	}
+	if sc.Duration == 0 {
+		sc.Duration = 10 * time.Minute
+	}
+	if sc.Sensor.Digits == 0 {
+		sc.Sensor.Digits = 2
+	}
+	if sc.Settings.Cycle == 0 {
+		sc.Settings.Cycle = 0.25
+	}
+	if sc.Settings.Trigger == 0 {
+		sc.Settings.Trigger = 2
+	}
+	if sc.Settings.Flow == "" {
+		sc.Settings.Flow = "constant"
+	}
+}
+
+// Validate checks the scenario and every point of its timeline.
+func (sc *Scenario) Validate() error {
+	if sc.RateHz < 10 || sc.RateHz > 1000 {
+		return fmt.Errorf("rate_hz %g out of range (10…1000)", sc.RateHz)
+	}
+	if sc.Duration < 0 {
+		return errors.New("duration is negative")
+	}
+	if sc.Sensor.PawNoise < 0 || sc.Sensor.FlowNoise < 0 || sc.Sensor.Digits < 0 || sc.Sensor.Digits > 6 {
+		return errors.New("sensor: noise must not be negative, digits 0…6")
+	}
+	if sc.Patient.Sex != "" || sc.Patient.HeightCm != 0 {
+		if _, err := PredictedBodyWeight(sc.Patient.Sex, sc.Patient.HeightCm); err != nil {
+			return fmt.Errorf("patient: %w", err)
+		}
+	}
+	if err := sc.Settings.Validate(); err != nil {
+		return fmt.Errorf("settings: %w", err)
+	}
+	if !sort.SliceIsSorted(sc.Timeline, func(i, j int) bool { return sc.Timeline[i].At < sc.Timeline[j].At }) {
+		return errors.New("timeline: changes must be in order of at")
+	}
+	probe := *sc
+	for i, ch := range sc.Timeline {
+		if ch.At < 0 || ch.Ramp < 0 || ch.Disconnect < 0 {
+			return fmt.Errorf("timeline[%d]: negative time", i)
+		}
+		for k := range ch.Set {
+			if _, ok := probe.Settings.numeric()[k]; !ok {
+				return fmt.Errorf("timeline[%d]: unknown setting %q (one of %s)", i, k, settingNames())
+			}
+		}
+		probe.Settings = sc.settingsAt(ch.At + ch.Ramp)
+		if err := probe.Settings.Validate(); err != nil {
+			return fmt.Errorf("timeline[%d] (at %v): %w", i, ch.At, err)
+		}
+	}
+	return nil
+}
+
+func settingNames() string {
+	var s Settings
+	names := make([]string, 0, 16)
+	for k := range s.numeric() {
+		names = append(names, k)
+	}
+	sort.Strings(names)
+	return strings.Join(names, ", ")
+}
+
+// settingsAt returns the settings in effect at time t.
+func (sc *Scenario) settingsAt(t time.Duration) Settings {
+	cur := sc.Settings
+	vals := cur.numeric()
+	for _, ch := range sc.Timeline {
+		if t < ch.At {
+			break
+		}
+		frac := 1.0
+		if ch.Ramp > 0 && t < ch.At+ch.Ramp {
+			frac = float64(t-ch.At) / float64(ch.Ramp)
+		}
+		for k, v := range ch.Set {
+			if p, ok := vals[k]; ok {
+				*p += (v - *p) * frac
+			}
+		}
+		if ch.Mode != "" {
+			cur.Mode = ch.Mode
+		}
+	}
+	return cur
+}
+
+// disconnectedAt reports whether the circuit is open at time t.
+func (sc *Scenario) disconnectedAt(t time.Duration) bool {
+	for _, ch := range sc.Timeline {
+		if ch.Disconnect > 0 && t >= ch.At && t < ch.At+ch.Disconnect {
+			return true
+		}
+	}
+	return false
+}

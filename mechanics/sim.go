@@ -1,0 +1,336 @@
+package mechanics
+
+import (
+	"math"
+	"math/rand/v2"
+	"time"
+)
+
+// Truth is what the simulator knows about one breath, for comparing with
+// what breathd measures.
+type Truth struct {
+	Seq       int     // breath number, from 1
+	TStart    float64 // s
+	TEnd      float64 // s, the next breath's start
+	Mode      string  // vc, pc or ps
+	R         float64 // cmH2O·s/L
+	C         float64 // mL/cmH2O
+	PEEP      float64 // set PEEP, cmH2O
+	IPEEP     float64 // intrinsic PEEP at the breath's start (alveolar pressure above PEEP), cmH2O
+	VT        float64 // volume into the lung, mL
+	Peak      float64 // highest noise-free airway pressure at a sample, cmH2O
+	Plateau   float64 // noise-free airway pressure at the end of the pause, cmH2O; NaN without a pause
+	DP        float64 // driving pressure VT/C, cmH2O
+	RR        float64 // 60/(TEnd − TStart), 1/min
+	Active    bool    // muscle effort during the breath
+	Triggered bool    // started by the patient's effort
+}
+
+// SimSample is one sample of the simulated stream.
+type SimSample struct {
+	T        float64 // s
+	Paw      float64 // measured airway pressure: with noise, cmH2O
+	Flow     float64 // measured flow: lung flow with leak, drift and noise, L/min
+	PawTrue  float64 // noise-free airway pressure, cmH2O
+	FlowTrue float64 // flow into the lung, L/min
+	Open     bool    // the circuit is disconnected
+}
+
+const (
+	phaseInsp = iota
+	phasePause
+	phaseExp
+)
+
+// maxSubstep bounds the integration step inside a sample interval, s.
+const maxSubstep = 0.002
+
+// Sim generates a stream from the single-compartment equation of motion
+// Paw = R·V' + V/C + PEEP − Pmus (Bates, Lung Mechanics, 2009, ch. 3),
+// driven by a ventilator in volume control, pressure control or pressure
+// support. Pressure-driven phases are integrated exactly (the exponential
+// solution over each substep); flow-driven phases by the midpoint rule,
+// exact for constant and linear flow. It is deterministic for a seed and
+// does not allocate per sample.
+type Sim struct {
+	sc    Scenario
+	dt    float64 // s
+	h     float64 // substep, s
+	n     int64   // next sample index
+	end   int64   // samples in the scenario
+	rng   *rand.Rand
+	truth func(Truth)
+
+	v     float64 // lung volume above the relaxed volume at PEEP, L
+	set   Settings
+	cl    float64 // compliance, L/cmH2O
+	decay float64 // exp(−h/τ)
+	phase int
+	open  bool
+
+	bStart, flowEnd, pauseEnd, inspEnd, next, expStart float64
+	flow0, flowSlope                                   float64 // vc flow F(τ) = flow0 + flowSlope·τ, L/s
+	peakFlow                                           float64 // ps: peak inspiratory flow so far, L/s
+	triggered                                          bool
+
+	effortStart, nextEffort float64
+
+	seq     int
+	cur     Truth
+	inBr    bool
+	vStart  float64
+	vMax    float64
+	started bool
+}
+
+// NewSim returns a simulator for sc (defaults applied, then validated by
+// the caller). truth, if not nil, is called at the end of every complete
+// breath.
+func NewSim(sc Scenario, truth func(Truth)) *Sim {
+	sc.Defaults()
+	s := &Sim{sc: sc, truth: truth, dt: 1 / sc.RateHz}
+	nsub := math.Ceil(s.dt / maxSubstep)
+	s.h = s.dt / nsub
+	s.end = int64(math.Round(sc.Duration.Seconds() * sc.RateHz))
+	s.rng = rand.New(rand.NewPCG(sc.Seed, sc.Seed^0x9e3779b97f4a7c15))
+	s.nextEffort = 1.0 // the first effort, if any, a second in
+	return s
+}
+
+// RateHz is the sample rate.
+func (s *Sim) RateHz() float64 { return s.sc.RateHz }
+
+// Scenario returns the scenario with its defaults.
+func (s *Sim) Scenario() Scenario { return s.sc }
+
+// Next fills out with the next sample and reports false at the end.
+func (s *Sim) Next(out *SimSample) bool {
+	if s.n >= s.end {
+		return false
+	}
+	t := float64(s.n) * s.dt
+	s.n++
+	open := s.sc.disconnectedAt(seconds(t))
+	if !s.started || (s.open && !open) {
+		s.started, s.open = true, false
+		s.v = 0
+		s.startBreath(t, false)
+	} else if open && !s.open {
+		s.open, s.inBr = true, false // the breath in progress is lost
+	}
+	if s.open {
+		*out = SimSample{T: t, Open: true, Paw: s.noise(s.sc.Sensor.PawNoise), Flow: s.noise(s.sc.Sensor.FlowNoise)}
+		return true
+	}
+	pmus := s.pmus(t)
+	paw, vdot := s.airway(t, pmus)
+	out.T, out.PawTrue, out.FlowTrue, out.Open = t, paw, vdot*60, false
+	flow := vdot*60 + s.sc.Sensor.FlowDrift*t/3600
+	if paw > 0 {
+		flow += s.set.Leak * paw
+	}
+	out.Paw = paw + s.noise(s.sc.Sensor.PawNoise)
+	out.Flow = flow + s.noise(s.sc.Sensor.FlowNoise)
+	if s.inBr {
+		s.cur.Peak = math.Max(s.cur.Peak, paw)
+		if pmus > 0 {
+			s.cur.Active = true
+		}
+	}
+	s.advance(t, t+s.dt)
+	return true
+}
+
+func seconds(t float64) time.Duration { return time.Duration(t * float64(time.Second)) }
+
+func (s *Sim) noise(sigma float64) float64 {
+	if sigma == 0 {
+		return 0
+	}
+	return s.rng.NormFloat64() * sigma
+}
+
+// pmus is the muscle pressure at t, cmH2O. Calls come with increasing t.
+func (s *Sim) pmus(t float64) float64 {
+	set := &s.set
+	if set.EffortRate <= 0 {
+		return 0
+	}
+	for t >= s.nextEffort {
+		s.effortStart = s.nextEffort
+		s.nextEffort += 60 / set.EffortRate
+	}
+	if d := t - s.effortStart; d >= 0 && d < set.EffortTime {
+		return set.EffortP * math.Sin(math.Pi*d/set.EffortTime)
+	}
+	return 0
+}
+
+// airway returns airway pressure (cmH2O) and lung flow (L/s) at t.
+func (s *Sim) airway(t, pmus float64) (paw, vdot float64) {
+	set := &s.set
+	switch {
+	case s.phase == phaseInsp && set.Mode == ModeVC:
+		vdot = s.flow0 + s.flowSlope*(t-s.bStart)
+		return set.R*vdot + s.v/s.cl + set.PEEP - pmus, vdot
+	case s.phase == phasePause:
+		return s.v/s.cl + set.PEEP - pmus, 0
+	case s.phase == phaseInsp:
+		paw = set.PEEP + set.PInsp*s.riseFrac(t)
+	default:
+		paw = set.PEEP
+	}
+	return paw, (paw - set.PEEP + pmus - s.v/s.cl) / set.R
+}
+
+func (s *Sim) riseFrac(t float64) float64 {
+	if s.set.Rise <= 0 {
+		return 1
+	}
+	return math.Min(1, (t-s.bStart)/s.set.Rise)
+}
+
+// advance integrates the lung from t0 to t1, taking the phase changes on
+// the way.
+func (s *Sim) advance(t0, t1 float64) {
+	for ts := t0; ts < t1-1e-12; {
+		te := math.Min(t1, ts+s.h)
+		if b := s.boundary(); b > ts && b < te {
+			te = b
+		}
+		s.step(ts, te)
+		ts = te
+		if s.inBr {
+			s.vMax = math.Max(s.vMax, s.v)
+		}
+		s.transitions(ts)
+	}
+}
+
+// boundary is the time of the current phase's timed end, or +Inf.
+func (s *Sim) boundary() float64 {
+	switch {
+	case s.phase == phaseInsp && s.set.Mode == ModeVC:
+		return s.flowEnd
+	case s.phase == phasePause:
+		return s.pauseEnd
+	case s.phase == phaseInsp && s.set.Mode == ModePC:
+		return s.inspEnd
+	case s.phase == phaseExp:
+		return s.next
+	}
+	return math.Inf(1)
+}
+
+func (s *Sim) step(ts, te float64) {
+	h := te - ts
+	mid := ts + h/2
+	pmus := s.pmus(mid)
+	set := &s.set
+	switch {
+	case s.phase == phaseInsp && set.Mode == ModeVC:
+		s.v += (s.flow0 + s.flowSlope*(mid-s.bStart)) * h
+	case s.phase == phasePause:
+	default:
+		paw, _ := s.airway(mid, pmus)
+		veq := s.cl * (paw - set.PEEP + pmus)
+		d := s.decay
+		if math.Abs(h-s.h) > 1e-12 {
+			d = math.Exp(-h / (set.R * s.cl))
+		}
+		s.v = veq + (s.v-veq)*d
+	}
+}
+
+// transitions moves to the next phase or breath when its time has come.
+func (s *Sim) transitions(ts float64) {
+	const eps = 1e-9
+	set := &s.set
+	switch s.phase {
+	case phaseInsp:
+		switch set.Mode {
+		case ModeVC:
+			if ts >= s.flowEnd-eps {
+				if s.pauseEnd > s.flowEnd {
+					s.phase = phasePause
+				} else {
+					s.toExp(ts)
+				}
+			}
+		case ModePC:
+			if ts >= s.inspEnd-eps {
+				s.toExp(ts)
+			}
+		case ModePS:
+			_, vdot := s.airway(ts, s.pmus(ts))
+			s.peakFlow = math.Max(s.peakFlow, vdot)
+			if (ts-s.bStart > set.Rise && vdot < set.Cycle*s.peakFlow) || ts-s.bStart > 3 {
+				s.toExp(ts)
+			}
+		}
+	case phasePause:
+		if ts >= s.pauseEnd-eps {
+			if s.inBr {
+				s.cur.Plateau = s.v/s.cl + set.PEEP - s.pmus(ts)
+			}
+			s.toExp(ts)
+		}
+	case phaseExp:
+		if ts >= s.next-eps {
+			s.startBreath(ts, false)
+			return
+		}
+		if set.Mode == ModePS && ts-s.expStart > 0.2 {
+			if _, vdot := s.airway(ts, s.pmus(ts)); vdot*60 > set.Trigger {
+				s.startBreath(ts, true)
+			}
+		}
+	}
+}
+
+func (s *Sim) toExp(ts float64) {
+	s.phase, s.expStart = phaseExp, ts
+}
+
+// startBreath ends the breath in progress and begins one at ts with the
+// settings then in effect.
+func (s *Sim) startBreath(ts float64, triggered bool) {
+	if s.inBr && s.truth != nil {
+		c := s.cur
+		c.TEnd = ts
+		c.RR = 60 / (ts - c.TStart)
+		c.VT = (s.vMax - s.vStart) * 1000
+		c.DP = c.VT / c.C
+		s.truth(c)
+	}
+	s.set = s.sc.settingsAt(seconds(ts))
+	set := &s.set
+	s.cl = set.C / 1000
+	s.decay = math.Exp(-s.h / (set.R * s.cl))
+	s.seq++
+	s.bStart, s.phase, s.peakFlow, s.triggered = ts, phaseInsp, 0, triggered
+	s.next = ts + 60/set.RR
+	switch set.Mode {
+	case ModeVC:
+		tflow := set.Ti - set.Pause
+		pause := set.Pause
+		if set.PauseEvery > 1 && s.seq%set.PauseEvery != 0 {
+			pause = 0
+		}
+		vt := set.VT / 1000
+		s.flow0, s.flowSlope = vt/tflow, 0
+		if set.Flow == "decelerating" {
+			// from a peak down to a quarter of it: VT = peak·tflow·(1 + 0.25)/2
+			s.flow0 = 2 * vt / (tflow * 1.25)
+			s.flowSlope = -0.75 * s.flow0 / tflow
+		}
+		s.flowEnd = ts + tflow
+		s.pauseEnd = s.flowEnd + pause
+	case ModePC:
+		s.inspEnd = ts + set.Ti
+	}
+	s.inBr = true
+	s.vStart, s.vMax = s.v, s.v
+	s.cur = Truth{Seq: s.seq, TStart: ts, Mode: set.Mode, R: set.R, C: set.C, PEEP: set.PEEP,
+		IPEEP: s.v / s.cl, Peak: math.Inf(-1), Plateau: math.NaN(), Triggered: triggered}
+}
