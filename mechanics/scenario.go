@@ -35,6 +35,9 @@ type Settings struct {
 	Rise       float64 `yaml:"rise"`    // pc, ps: time to reach it, s
 	Cycle      float64 `yaml:"cycle"`   // ps: end inspiration when flow falls below this fraction of its peak; default 0.25
 	Trigger    float64 `yaml:"trigger"` // ps: patient flow that triggers a breath, L/min; default 2
+	// TriggerDelay is the ventilator's response time after the trigger, s
+	// (ps; default 0.06): the patient draws flow at PEEP meanwhile.
+	TriggerDelay float64 `yaml:"trigger_delay"`
 	// Patient effort: a half-sine muscle pressure of EffortP cmH2O lasting
 	// EffortTime s, EffortRate times a minute (0: a passive patient).
 	EffortRate float64 `yaml:"effort_rate"`
@@ -47,7 +50,7 @@ type Settings struct {
 func (s *Settings) numeric() map[string]*float64 {
 	return map[string]*float64{
 		"r": &s.R, "c": &s.C, "peep": &s.PEEP, "rr": &s.RR, "vt": &s.VT, "ti": &s.Ti,
-		"pause": &s.Pause, "pinsp": &s.PInsp, "rise": &s.Rise, "cycle": &s.Cycle, "trigger": &s.Trigger,
+		"pause": &s.Pause, "pinsp": &s.PInsp, "rise": &s.Rise, "cycle": &s.Cycle, "trigger": &s.Trigger, "trigger_delay": &s.TriggerDelay,
 		"effort_rate": &s.EffortRate, "effort_p": &s.EffortP, "effort_time": &s.EffortTime, "leak": &s.Leak,
 	}
 }
@@ -67,7 +70,7 @@ func (s *Settings) Validate() error {
 		{"r", s.R, 0.5, 200}, {"c", s.C, 1, 500}, {"peep", s.PEEP, 0, 40}, {"rr", s.RR, 1, 120},
 		{"pause", s.Pause, 0, 5}, {"rise", s.Rise, 0, 2}, {"effort_rate", s.EffortRate, 0, 80},
 		{"effort_p", s.EffortP, 0, 40}, {"effort_time", s.EffortTime, 0, 3}, {"leak", s.Leak, 0, 5},
-		{"cycle", s.Cycle, 0, 0.9}, {"trigger", s.Trigger, 0, 30},
+		{"cycle", s.Cycle, 0, 0.9}, {"trigger", s.Trigger, 0, 30}, {"trigger_delay", s.TriggerDelay, 0, 0.5},
 	}
 	for _, c := range checks {
 		if math.IsNaN(c.v) || c.v < c.min || c.v > c.max {
@@ -139,7 +142,7 @@ type Scenario struct {
 }
 
 // Defaults fills unset fields: 100 Hz, 10 minutes, 2 printed digits, a
-// 25 % cycle and a 2 L/min trigger.
+// 25 % cycle, a 2 L/min trigger and a 60 ms trigger delay.
 func (sc *Scenario) Defaults() {
 	if sc.RateHz == 0 {
 		sc.RateHz = 100
@@ -155,6 +158,9 @@ func (sc *Scenario) Defaults() {
 	}
 	if sc.Settings.Trigger == 0 {
 		sc.Settings.Trigger = 2
+	}
+	if sc.Settings.TriggerDelay == 0 {
+		sc.Settings.TriggerDelay = 0.06
 	}
 	if sc.Settings.Flow == "" {
 		sc.Settings.Flow = "constant"

@@ -72,6 +72,9 @@ type Sim struct {
 	flow0, flowSlope                                   float64 // vc flow F(τ) = flow0 + flowSlope·τ, L/s
 	peakFlow                                           float64 // ps: peak inspiratory flow so far, L/s
 	triggered                                          bool
+	prevVdot                                           float64 // ps expiration: lung flow at the last substep, L/s
+	upT, upV                                           float64 // ps: when lung flow last turned inward, and the volume then
+	trigAt                                             float64 // ps: when the triggered breath is delivered; 0 none
 
 	effortStart, nextEffort float64
 
@@ -280,25 +283,41 @@ func (s *Sim) transitions(ts float64) {
 			s.startBreath(ts, false)
 			return
 		}
-		if set.Mode == ModePS && ts-s.expStart > 0.2 {
-			if _, vdot := s.airway(ts, s.pmus(ts)); vdot*60 > set.Trigger {
-				s.startBreath(ts, true)
-			}
+		if set.Mode != ModePS {
+			return
+		}
+		_, vdot := s.airway(ts, s.pmus(ts))
+		if vdot > 0 && s.prevVdot <= 0 {
+			s.upT, s.upV = ts, s.v
+		}
+		s.prevVdot = vdot
+		switch {
+		case s.trigAt > 0 && ts >= s.trigAt-eps:
+			s.startBreath(ts, true)
+		case s.trigAt == 0 && ts-s.expStart > 0.2 && vdot*60 > set.Trigger:
+			s.trigAt = ts + set.TriggerDelay
 		}
 	}
 }
 
 func (s *Sim) toExp(ts float64) {
-	s.phase, s.expStart = phaseExp, ts
+	s.phase, s.expStart, s.trigAt, s.prevVdot = phaseExp, ts, 0, -1
 }
 
 // startBreath ends the breath in progress and begins one at ts with the
 // settings then in effect.
+//
+// A triggered breath's truth starts when the lung's flow turned inward
+// (the patient began to inhale), before the ventilator responded.
 func (s *Sim) startBreath(ts float64, triggered bool) {
+	boundary, v0 := ts, s.v
+	if triggered {
+		boundary, v0 = s.upT, s.upV
+	}
 	if s.inBr && s.truth != nil {
 		c := s.cur
-		c.TEnd = ts
-		c.RR = 60 / (ts - c.TStart)
+		c.TEnd = boundary
+		c.RR = 60 / (boundary - c.TStart)
 		c.VT = (s.vMax - s.vStart) * 1000
 		c.DP = c.VT / c.C
 		s.truth(c)
@@ -330,7 +349,7 @@ func (s *Sim) startBreath(ts float64, triggered bool) {
 		s.inspEnd = ts + set.Ti
 	}
 	s.inBr = true
-	s.vStart, s.vMax = s.v, s.v
-	s.cur = Truth{Seq: s.seq, TStart: ts, Mode: set.Mode, R: set.R, C: set.C, PEEP: set.PEEP,
-		IPEEP: s.v / s.cl, Peak: math.Inf(-1), Plateau: math.NaN(), Triggered: triggered}
+	s.vStart, s.vMax = v0, math.Max(v0, s.v)
+	s.cur = Truth{Seq: s.seq, TStart: boundary, Mode: set.Mode, R: set.R, C: set.C, PEEP: set.PEEP,
+		IPEEP: v0 / s.cl, Peak: math.Inf(-1), Plateau: math.NaN(), Triggered: triggered, Active: triggered}
 }

@@ -1,0 +1,127 @@
+// Package mechanics finds breaths in a pressure/flow stream and computes
+// their respiratory mechanics; it also holds the lung model that the
+// simulator drives. It does no I/O and no logging.
+//
+// Units everywhere: pressure cmH2O, flow L/min, volume mL, time s,
+// compliance mL/cmH2O, resistance cmH2O·s/L, power J/min. A value that
+// cannot be computed for a breath is NaN (null in the output formats).
+package mechanics
+
+import (
+	"math"
+	"strings"
+)
+
+// Flags mark a breath's conditions.
+type Flags uint16
+
+// The flags, by their output word.
+const (
+	FlagNoPlateau            Flags = 1 << iota // no end-inspiratory pause with near-zero flow
+	FlagActiveEffort                           // the patient's own effort shows in the waveform
+	FlagFitUnreliable                          // the equation-of-motion fit is poor: fit_* are not mechanics
+	FlagGap                                    // the breath before this one was dropped (gap, open circuit, too long)
+	FlagLeak                                   // leak above the configured limit
+	FlagIncompleteExhalation                   // expiratory flow not back to zero at the next start
+	FlagVariableFlow                           // inspiratory flow not constant: no rinsp, no stress index
+	numFlags                 = iota
+)
+
+var flagWords = [numFlags]string{"no_plateau", "active_effort", "fit_unreliable", "gap", "leak", "incomplete_exhalation", "variable_flow"}
+
+// Words lists the flags' output words.
+func (f Flags) Words() []string {
+	var w []string
+	for i := 0; i < numFlags; i++ {
+		if f&(1<<i) != 0 {
+			w = append(w, flagWords[i])
+		}
+	}
+	return w
+}
+
+// String joins the flags' words with spaces.
+func (f Flags) String() string { return strings.Join(f.Words(), " ") }
+
+// AppendWords appends the flags' words separated by sep, without
+// allocating when b has room.
+func (f Flags) AppendWords(b []byte, sep byte) []byte {
+	first := true
+	for i := 0; i < numFlags; i++ {
+		if f&(1<<i) == 0 {
+			continue
+		}
+		if !first {
+			b = append(b, sep)
+		}
+		first = false
+		b = append(b, flagWords[i]...)
+	}
+	return b
+}
+
+// Breath is one breath's mechanics, from its inspiration start to the next
+// inspiration start. Field names follow the per-breath output contract.
+type Breath struct {
+	Seq    int64   // breath number since the device started
+	TStart float64 // stream time of the inspiration start, s
+	TEnd   float64 // stream time of the next inspiration start, s
+
+	Ti, Te float64 // inspiratory (including any pause) and expiratory time, s
+	RR     float64 // rate, 1/min
+	IE     float64 // expiratory/inspiratory time ratio
+
+	VTi, VTe float64 // inspired and expired volume, mL
+	Leak     float64 // (vti − vte)/vti, %
+
+	PPeak, PPlat, PEEP, PMean float64 // cmH2O; PPlat NaN without a pause
+	DP                        float64 // driving pressure pplat − peep, cmH2O
+	Cstat, Cdyn               float64 // mL/cmH2O
+	Rinsp                     float64 // (ppeak − pplat)/end-inspiratory flow, cmH2O·s/L; constant flow only
+
+	FitR, FitC, FitP0, FitR2 float64 // Paw = R·V' + V/C + P0 over the breath
+	Tau                      float64 // fit_r·fit_c, s
+
+	MP    float64 // mechanical power, J/min (simplified formula)
+	SI    float64 // stress index
+	VTPBW float64 // vti per kg of predicted body weight, mL/kg
+	EEF   float64 // end-expiratory flow, L/min
+
+	Flags Flags
+}
+
+// Fields are the per-breath numeric fields in output order, with the
+// contract's names.
+var Fields = []string{"t_start", "t_end", "ti", "te", "rr", "ie", "vti", "vte", "leak",
+	"ppeak", "pplat", "peep", "pmean", "dp", "cstat", "cdyn", "rinsp",
+	"fit_r", "fit_c", "fit_p0", "fit_r2", "tau", "mp", "si", "vt_pbw", "eef"}
+
+// Values appends the numeric fields in the order of Fields.
+func (b *Breath) Values(dst []float64) []float64 {
+	return append(dst, b.TStart, b.TEnd, b.Ti, b.Te, b.RR, b.IE, b.VTi, b.VTe, b.Leak,
+		b.PPeak, b.PPlat, b.PEEP, b.PMean, b.DP, b.Cstat, b.Cdyn, b.Rinsp,
+		b.FitR, b.FitC, b.FitP0, b.FitR2, b.Tau, b.MP, b.SI, b.VTPBW, b.EEF)
+}
+
+// Field returns a numeric field by its contract name, and false for an
+// unknown name.
+func (b *Breath) Field(name string) (float64, bool) {
+	i := fieldIndex(name)
+	if i < 0 {
+		return math.NaN(), false
+	}
+	var buf [32]float64
+	return b.Values(buf[:0])[i], true
+}
+
+func fieldIndex(name string) int {
+	for i, f := range Fields {
+		if f == name {
+			return i
+		}
+	}
+	return -1
+}
+
+// Reliable reports whether the fitted mechanics may be read as the lung's.
+func (b *Breath) Reliable() bool { return b.Flags&(FlagFitUnreliable|FlagActiveEffort) == 0 }

@@ -1,0 +1,400 @@
+package mechanics
+
+import "math"
+
+var nan = math.NaN()
+
+// compute fills b from the buffer's samples [0, j); sample j is the next
+// breath's start.
+func (s *Segmenter) compute(b *Breath, j int) {
+	c := &s.cfg
+	t, paw, flow := s.t, s.paw, s.flow
+	e := s.expStart // first expiratory sample
+	*b = Breath{TStart: t[0], TEnd: t[j], Flags: 0}
+	b.Ti, b.Te = t[e]-t[0], t[j]-t[e]
+	b.RR = 60 / (b.TEnd - b.TStart)
+	b.IE = b.Te / b.Ti
+
+	// Volumes, mL: the trapezoid rule inside each phase; at the three
+	// switches (start, start of expiration, next start) the flow jumps at an
+	// unknown moment within the sample interval, so each side gets half an
+	// interval of its own flow — unbiased when breaths are not aligned with
+	// the sampling.
+	var vin, vex, pint float64
+	for i := 0; i < j; i++ {
+		dt := t[i+1] - t[i]
+		switch {
+		case i == 0:
+			vin += flow[0] * dt / 2 // the half interval before the first sample
+			fallthrough
+		case i < e-1:
+			vin += (flow[i] + flow[i+1]) / 2 * dt
+		case i == e-1:
+			vin += flow[i] * dt / 2
+			vex -= flow[i+1] * dt / 2
+		case i < j-1:
+			vex -= (flow[i] + flow[i+1]) / 2 * dt
+		default:
+			vex -= flow[i] * dt / 2
+		}
+		pint += paw[i] * dt
+	}
+	b.VTi, b.VTe = vin/60*1000, vex/60*1000
+	b.Leak = nan
+	if b.VTi > 0 {
+		b.Leak = (b.VTi - b.VTe) / b.VTi * 100
+		if b.Leak > c.LeakLimit {
+			b.Flags |= FlagLeak
+		}
+	}
+	b.PMean = pint / (b.TEnd - b.TStart)
+	b.PEEP = s.endExpiratoryPressure(e, j)
+	b.EEF = (flow[j-1] + flow[max(j-2, e)]) / 2
+	if b.EEF < -c.EEFLimit {
+		b.Flags |= FlagIncompleteExhalation
+	}
+
+	// inspiratory flow: constant or not, its end value, and the peak
+	flowEnd := s.inspEnd
+	if flowEnd < 0 || flowEnd > e {
+		flowEnd = e
+	}
+	constant, endFlow := s.constantFlow(0, flowEnd)
+	b.PPeak = smoothedMax(paw, 0, e)
+	if constant {
+		// the pressure where constant flow stopped — half a sample interval
+		// after its last sample, on average — from a line through the end of
+		// the ramp: no noise picked up by a maximum, no lag by the sampling
+		end := flowEnd - 1
+		at := t[end] + (t[end+1]-t[end])/2
+		if p := lineAt(t, paw, end-max(3, flowEnd*3/10), end, at); !math.IsNaN(p) {
+			b.PPeak = p
+		}
+	} else {
+		b.Flags |= FlagVariableFlow
+	}
+
+	b.PPlat = s.plateau(flowEnd, e)
+	b.DP, b.Cstat, b.Rinsp = nan, nan, nan
+	if math.IsNaN(b.PPlat) {
+		b.Flags |= FlagNoPlateau
+	} else {
+		b.DP = b.PPlat - b.PEEP
+		if b.DP > 0.5 {
+			b.Cstat = b.VTi / b.DP
+		}
+		if constant && endFlow > 0 {
+			b.Rinsp = (b.PPeak - b.PPlat) / (endFlow / 60)
+		}
+	}
+	b.Cdyn = nan
+	if b.PPeak-b.PEEP > 0.5 {
+		b.Cdyn = b.VTi / (b.PPeak - b.PEEP)
+	}
+
+	s.fit(b, j)
+	if s.nextDip || s.patientStart(e) {
+		b.Flags |= FlagActiveEffort
+	}
+	s.nextDip = s.triggerDip(e, j)
+	s.lastPEEP = b.PEEP
+	if b.FitR2 < c.FitR2Min || math.IsNaN(b.FitR2) {
+		b.Flags |= FlagFitUnreliable | FlagActiveEffort
+	}
+	if b.Flags&FlagActiveEffort != 0 {
+		b.Flags |= FlagFitUnreliable // a fit under effort is not the lung's
+	}
+
+	// mechanical power, Gattinoni's simplified formula: measured driving
+	// pressure, else the fitted one when the fit is reliable
+	dp := b.DP
+	if math.IsNaN(dp) && b.Reliable() && b.FitC > 0 {
+		dp = b.VTi / b.FitC
+	}
+	b.MP = MechanicalPower(b.RR, b.VTi, b.PPeak, dp)
+
+	b.SI = nan
+	if constant && b.Reliable() {
+		b.SI = s.stressIndex(flowEnd)
+	}
+	b.VTPBW = nan
+	if s.pbw > 0 {
+		b.VTPBW = b.VTi / s.pbw
+	}
+}
+
+// MechanicalPower is Gattinoni's simplified formula for volume control,
+// 0.098·RR·VT·(Ppeak − ½·ΔP), in J/min with rr in 1/min, vt in mL and
+// pressures in cmH2O (Gattinoni et al., Intensive Care Med 2016;42:1567).
+// NaN when dp is NaN.
+func MechanicalPower(rr, vtML, ppeak, dp float64) float64 {
+	return 0.098 * rr * vtML / 1000 * (ppeak - dp/2)
+}
+
+// MechanicalPowerFull is Gattinoni's full formula for constant flow
+// without a pause: 0.098·RR·{VT²·[½·E + RR·(1+I:E)/(60·I:E)·R] + VT·PEEP},
+// with VT in L, E in cmH2O/L and R in cmH2O·s/L; ie is I:E as the
+// inspiratory/expiratory ratio (0.5 for 1:2). J/min.
+func MechanicalPowerFull(rr, vtL, elastance, resistance, ie, peep float64) float64 {
+	return 0.098 * rr * (vtL*vtL*(elastance/2+rr*(1+ie)/(60*ie)*resistance) + vtL*peep)
+}
+
+// endExpiratoryPressure is the mean pressure over the last 0.2 s (at most
+// a quarter) of expiration.
+func (s *Segmenter) endExpiratoryPressure(e, j int) float64 {
+	w := math.Min(0.2, (s.t[j]-s.t[e])/4)
+	var sum float64
+	n := 0
+	for i := j - 1; i >= e && s.t[j]-s.t[i] <= w+1e-9; i-- {
+		sum += s.paw[i]
+		n++
+	}
+	if n == 0 {
+		return s.paw[j-1]
+	}
+	return sum / float64(n)
+}
+
+// constantFlow says whether inspiratory flow over [0, end) was constant:
+// over its middle 60 % the standard deviation is under a tenth of the mean.
+// It also returns the mean flow over the last fifth (L/min).
+func (s *Segmenter) constantFlow(lo, end int) (bool, float64) {
+	n := end - lo
+	if n < 5 {
+		return false, nan
+	}
+	a, z := lo+n/5, lo+n*4/5
+	var sum, sum2 float64
+	for i := a; i < z; i++ {
+		sum += s.flow[i]
+		sum2 += s.flow[i] * s.flow[i]
+	}
+	m := float64(z - a)
+	mean := sum / m
+	sd := math.Sqrt(math.Max(0, sum2/m-mean*mean))
+	var last float64
+	k := 0
+	for i := lo + n*4/5; i < end; i++ {
+		last += s.flow[i]
+		k++
+	}
+	return mean > s.cfg.StartFlow && sd < 0.1*mean, last / float64(k)
+}
+
+// smoothedMax is the largest 3-sample moving average of x over [lo, hi).
+func smoothedMax(x []float64, lo, hi int) float64 {
+	best := math.Inf(-1)
+	for i := lo; i < hi; i++ {
+		a, z := max(i-1, lo), min(i+1, hi-1)
+		var sum float64
+		for k := a; k <= z; k++ {
+			sum += x[k]
+		}
+		best = math.Max(best, sum/float64(z-a+1))
+	}
+	return best
+}
+
+// lineAt fits a straight line to y over samples [lo, hi] and returns its
+// value at time at; NaN with fewer than 3 samples.
+func lineAt(t, y []float64, lo, hi int, at float64) float64 {
+	mt, my, slope, ok := lineFit(t, y, max(lo, 0), hi)
+	if !ok {
+		return nan
+	}
+	return my + slope*(at-mt)
+}
+
+// lineFit is the least-squares line through (t, y) over [lo, hi]: the
+// means and the slope; ok is false with fewer than 3 samples.
+func lineFit(t, y []float64, lo, hi int) (mt, my, slope float64, ok bool) {
+	n := hi - lo + 1
+	if n < 3 {
+		return 0, 0, 0, false
+	}
+	for i := lo; i <= hi; i++ {
+		mt += t[i]
+		my += y[i]
+	}
+	mt, my = mt/float64(n), my/float64(n)
+	var stt, sty float64
+	for i := lo; i <= hi; i++ {
+		stt += (t[i] - mt) * (t[i] - mt)
+		sty += (t[i] - mt) * (y[i] - my)
+	}
+	if stt == 0 {
+		return 0, 0, 0, false
+	}
+	return mt, my, sty / stt, true
+}
+
+// plateau is the mean pressure over the second half of the end-inspiratory
+// pause [from, e), or NaN when there is no pause of MinPause with |flow|
+// under PauseFlow, or its pressure has not settled (it still moves by more
+// than 1 cmH2O over the averaging window).
+func (s *Segmenter) plateau(from, e int) float64 {
+	c := &s.cfg
+	i := from
+	for i < e && math.Abs(s.flow[i]) > c.PauseFlow {
+		i++ // the turn from inspiratory flow to the pause
+	}
+	start := i
+	for i < e && math.Abs(s.flow[i]) <= c.PauseFlow {
+		i++
+	}
+	end := i - 1 // drop the last sample: the expiratory valve is opening
+	if end-start < 2 || s.t[end]-s.t[start] < c.MinPause {
+		return nan
+	}
+	lo := start + (end-start)/2
+	_, mean, slope, ok := lineFit(s.t, s.paw, lo, end-1)
+	if !ok || math.Abs(slope*(s.t[end-1]-s.t[lo])) > 1 {
+		return nan // not settled: it still moves by more than 1 cmH2O across the window
+	}
+	return mean
+}
+
+// triggerDip reports whether pressure dipped TriggerDip or more below its
+// level in the 0.3 s before the next start — the patient pulling on the
+// circuit (Thille et al., Intensive Care Med 2006;32:1515: a drop of at
+// least 0.5 cmH2O marks an effort).
+func (s *Segmenter) triggerDip(e, j int) bool {
+	tEnd := s.t[j]
+	var ref float64
+	n := 0
+	lowest := math.Inf(1)
+	for i := e; i < j; i++ {
+		switch d := tEnd - s.t[i]; {
+		case d > 0.3 && d <= 0.6:
+			ref += s.paw[i]
+			n++
+		case d <= 0.3 && i > e && i+1 < j:
+			lowest = math.Min(lowest, (s.paw[i-1]+s.paw[i]+s.paw[i+1])/3)
+		}
+	}
+	return n > 0 && ref/float64(n)-lowest >= s.cfg.TriggerDip
+}
+
+// patientStart reports inspiratory flow of at least StartFlow/2 while
+// the airway pressure is still within 0.2 cmH2O of the previous PEEP, in
+// the first 0.15 s of the breath. A passive lung only fills when the
+// airway pressure rises above the alveolar pressure, itself at or above
+// PEEP (by R·V' — at R 10 cmH2O·s/L, 0.2 cmH2O drives 1.2 L/min); more flow
+// than that without the rise means the patient's muscles drew it in (the
+// equation of motion with Pmus; Bates 2009, ch. 3).
+func (s *Segmenter) patientStart(e int) bool {
+	if math.IsNaN(s.lastPEEP) {
+		return false
+	}
+	for i := 0; i+1 < e && s.t[i]-s.t[0] <= 0.15; i++ {
+		p := (s.paw[i] + s.paw[i+1]) / 2
+		if s.flow[i] > s.cfg.StartFlow/2 && p < s.lastPEEP+0.2 {
+			return true
+		}
+	}
+	return false
+}
+
+// fit solves Paw = R·V' + E·V + P0 by least squares over the breath's
+// samples [0, j), with V' in L/s and V in L integrated by the trapezoid
+// rule from the breath's start, and fills fit_r, fit_c, fit_p0, fit_r2 and
+// tau. The sums are centred for accuracy.
+func (s *Segmenter) fit(b *Breath, j int) {
+	b.FitR, b.FitC, b.FitP0, b.FitR2, b.Tau = nan, nan, nan, nan, nan
+	if j < 8 {
+		return
+	}
+	t, paw, flow := s.t, s.paw, s.flow
+	// means
+	var mx1, mx2, my, v float64
+	for i := 0; i < j; i++ {
+		if i > 0 {
+			v += (flow[i-1] + flow[i]) / 2 / 60 * (t[i] - t[i-1])
+		}
+		mx1 += flow[i] / 60
+		mx2 += v
+		my += paw[i]
+	}
+	n := float64(j)
+	mx1, mx2, my = mx1/n, mx2/n, my/n
+	var s11, s12, s22, s1y, s2y, syy float64
+	v = 0
+	for i := 0; i < j; i++ {
+		if i > 0 {
+			v += (flow[i-1] + flow[i]) / 2 / 60 * (t[i] - t[i-1])
+		}
+		x1, x2, y := flow[i]/60-mx1, v-mx2, paw[i]-my
+		s11 += x1 * x1
+		s12 += x1 * x2
+		s22 += x2 * x2
+		s1y += x1 * y
+		s2y += x2 * y
+		syy += y * y
+	}
+	det := s11*s22 - s12*s12
+	if det <= 0 || syy == 0 {
+		return
+	}
+	r := (s1y*s22 - s2y*s12) / det
+	el := (s2y*s11 - s1y*s12) / det
+	ssr := syy - r*s1y - el*s2y // residual sum of squares
+	b.FitR2 = 1 - ssr/syy
+	b.FitR = r
+	b.FitP0 = my - r*mx1 - el*mx2
+	if el > 0 {
+		b.FitC = 1000 / el
+		b.Tau = r / el
+	}
+}
+
+// stressIndex fits Paw = a·t^b + c, t from the start of inspiration, over
+// the constant-flow part of inflation (from a tenth of it to its last
+// sample before the flow ends) and returns b (Ranieri et al.,
+// Anesthesiology 2000;93:1320). For each b the fit is linear in a and c;
+// b is found by golden-section search on the residual over [0.2, 5].
+func (s *Segmenter) stressIndex(flowEnd int) float64 {
+	lo, hi := flowEnd/10+1, flowEnd-1
+	if hi-lo < 6 {
+		return nan
+	}
+	t0 := s.t[0]
+	sse := func(b float64) float64 {
+		x := s.scratch[:0]
+		var mx, my float64
+		for i := lo; i < hi; i++ {
+			xi := math.Pow(s.t[i]-t0, b)
+			x = append(x, xi)
+			mx += xi
+			my += s.paw[i]
+		}
+		n := float64(hi - lo)
+		mx, my = mx/n, my/n
+		var sxx, sxy, syy float64
+		for k, i := 0, lo; i < hi; k, i = k+1, i+1 {
+			dx, dy := x[k]-mx, s.paw[i]-my
+			sxx += dx * dx
+			sxy += dx * dy
+			syy += dy * dy
+		}
+		if sxx == 0 {
+			return math.Inf(1)
+		}
+		return syy - sxy*sxy/sxx
+	}
+	const phi = 0.6180339887498949
+	a, z := 0.2, 5.0
+	x1, x2 := z-phi*(z-a), a+phi*(z-a)
+	f1, f2 := sse(x1), sse(x2)
+	for z-a > 1e-3 {
+		if f1 < f2 {
+			z, x2, f2 = x2, x1, f1
+			x1 = z - phi*(z-a)
+			f1 = sse(x1)
+		} else {
+			a, x1, f1 = x1, x2, f2
+			x2 = a + phi*(z-a)
+			f2 = sse(x2)
+		}
+	}
+	return (a + z) / 2
+}
