@@ -1,0 +1,321 @@
+package mechanics
+
+import (
+	"errors"
+	"math"
+	"slices"
+)
+
+// WindowConfig sizes the rolling window and the baseline the pressure-rise
+// attribution compares with. Zero fields take their defaults.
+type WindowConfig struct {
+	Breaths  int     // at most this many breaths; default 20
+	Span     float64 // and none older than this, s; default 300
+	Baseline float64 // the baseline is the Baseline seconds before the window; default 1800
+	RiseMin  float64 // a peak pressure rise below this is not attributed, cmH2O; default 3
+}
+
+// Defaults fills the unset fields.
+func (c *WindowConfig) Defaults() {
+	if c.Breaths == 0 {
+		c.Breaths = 20
+	}
+	if c.Span == 0 {
+		c.Span = 300
+	}
+	if c.Baseline == 0 {
+		c.Baseline = 1800
+	}
+	if c.RiseMin == 0 {
+		c.RiseMin = 3
+	}
+}
+
+// Validate reports an unusable setting.
+func (c *WindowConfig) Validate() error {
+	if c.Breaths < 2 || c.Breaths > 1000 {
+		return errors.New("window breaths must be 2…1000")
+	}
+	if c.Span <= 0 || c.Baseline <= 0 || c.Span+c.Baseline > 6*3600 || c.RiseMin < 0 {
+		return errors.New("window span and baseline must be positive, together at most 6 h")
+	}
+	return nil
+}
+
+// Stat summarises one field over the window; Median, Q1 and Q3 are NaN
+// when N is 0.
+type Stat struct {
+	Median, Q1, Q3 float64
+	N              int
+}
+
+// IQR is the interquartile range Q3 − Q1.
+func (s Stat) IQR() float64 { return s.Q3 - s.Q1 }
+
+// Rise causes.
+const (
+	RiseNone      = "none"      // the peak pressure did not rise by RiseMin, or no baseline yet
+	RiseResistive = "resistive" // mostly the resistive part (peak − plateau): airway
+	RiseElastic   = "elastic"   // mostly the elastic part (plateau − PEEP): lung or chest wall, or volume
+	RiseBoth      = "both"
+)
+
+// Attribution says which part of the peak pressure rose against the
+// baseline: the resistive part (R × end-inspiratory flow: peak − plateau)
+// or the elastic part (VT/C: plateau − PEEP). With pauses it uses the
+// measured parts; without, the fitted R and C (reliable breaths only).
+type Attribution struct {
+	Cause           string  // RiseNone, RiseResistive, RiseElastic or RiseBoth
+	Method          string  // "plateau", "fit", or "" without enough breaths
+	PeakRise        float64 // current minus baseline median peak pressure, cmH2O
+	ResistiveRise   float64 // cmH2O
+	ElasticRise     float64 // cmH2O
+	BaselineBreaths int
+}
+
+// Trend is the rolling summary after a breath.
+type Trend struct {
+	At      float64 // stream time of the latest breath's end, s
+	N       int     // breaths in the window
+	Span    float64 // stream time the window covers, s
+	Stats   []Stat  // one per entry of Fields
+	CSlope  float64 // compliance slope, mL/cmH2O per hour (cstat, or fit_c without plateaus)
+	DPSlope float64 // driving pressure slope, cmH2O per hour
+	Rise    Attribution
+}
+
+// Stat returns the statistics of a field by name.
+func (t *Trend) Stat(name string) (Stat, bool) {
+	i := fieldIndex(name)
+	if i < 0 {
+		return Stat{}, false
+	}
+	return t.Stats[i], true
+}
+
+// part is what the baseline keeps of each breath.
+type part struct {
+	t             float64
+	peak, res, el float64 // measured: peak, peak − plateau, plateau − PEEP
+	fitRes, fitEl float64 // fitted: peak − PEEP − VT/C, VT/C
+}
+
+// Window keeps the last breaths and the baseline history in rings
+// allocated once; Add does not allocate.
+type Window struct {
+	cfg     WindowConfig
+	ring    [][]float64 // the last Breaths breaths' values (Fields order)
+	flags   []Flags
+	head, n int
+	hist    []part // ring of breath parts for the baseline
+	hHead   int
+	hN      int
+	scratch []float64
+	idx     []int
+	trend   Trend
+}
+
+// NewWindow returns a window; cfg is completed with its defaults.
+func NewWindow(cfg WindowConfig) (*Window, error) {
+	cfg.Defaults()
+	if err := cfg.Validate(); err != nil {
+		return nil, err
+	}
+	w := &Window{cfg: cfg, ring: make([][]float64, cfg.Breaths), flags: make([]Flags, cfg.Breaths)}
+	for i := range w.ring {
+		w.ring[i] = make([]float64, 0, len(Fields))
+	}
+	// at up to 60 breaths a minute over baseline and window
+	hcap := int((cfg.Baseline+cfg.Span)/60*60) + cfg.Breaths
+	w.hist = make([]part, hcap)
+	w.scratch = make([]float64, 0, max(hcap, cfg.Breaths))
+	w.trend.Stats = make([]Stat, len(Fields))
+	w.idx = make([]int, 0, cfg.Breaths)
+	return w, nil
+}
+
+// Add takes a breath and returns the updated trend, valid until the next
+// Add.
+func (w *Window) Add(b *Breath) *Trend {
+	w.ring[w.head] = b.Values(w.ring[w.head][:0])
+	w.flags[w.head] = b.Flags
+	w.head = (w.head + 1) % len(w.ring)
+	w.n = min(w.n+1, len(w.ring))
+	w.remember(b)
+
+	tr := &w.trend
+	tr.At = b.TEnd
+	from := b.TEnd - w.cfg.Span
+	idx := w.inWindow(from)
+	tr.N = len(idx)
+	tr.Span = 0
+	if tr.N > 0 {
+		tr.Span = b.TEnd - w.ring[idx[0]][0]
+	}
+	for f := range Fields {
+		tr.Stats[f] = w.stat(idx, f)
+	}
+	tr.CSlope = w.complianceSlope(idx)
+	tr.DPSlope = w.slope(idx, fieldIndex("dp"), false)
+	tr.Rise = w.attribute(b.TEnd)
+	return tr
+}
+
+// inWindow lists the ring slots of breaths that started after from, oldest
+// first, in a slice the window reuses.
+func (w *Window) inWindow(from float64) []int {
+	idx := w.idx[:0]
+	for k := w.n; k >= 1; k-- {
+		slot := (w.head - k + len(w.ring)) % len(w.ring)
+		if w.ring[slot][0] >= from {
+			idx = append(idx, slot)
+		}
+	}
+	return idx
+}
+
+func (w *Window) stat(idx []int, f int) Stat {
+	x := w.scratch[:0]
+	for _, slot := range idx {
+		if v := w.ring[slot][f]; !math.IsNaN(v) {
+			x = append(x, v)
+		}
+	}
+	return summarize(x)
+}
+
+// summarize sorts x in place and returns its median and quartiles (linear
+// interpolation between order statistics).
+func summarize(x []float64) Stat {
+	if len(x) == 0 {
+		return Stat{Median: nan, Q1: nan, Q3: nan}
+	}
+	slices.Sort(x)
+	return Stat{Median: quantile(x, 0.5), Q1: quantile(x, 0.25), Q3: quantile(x, 0.75), N: len(x)}
+}
+
+func quantile(sorted []float64, q float64) float64 {
+	pos := q * float64(len(sorted)-1)
+	i := int(pos)
+	if i+1 >= len(sorted) {
+		return sorted[len(sorted)-1]
+	}
+	return sorted[i] + (pos-float64(i))*(sorted[i+1]-sorted[i])
+}
+
+// complianceSlope uses cstat when at least three breaths have one, else
+// the reliable breaths' fit_c.
+func (w *Window) complianceSlope(idx []int) float64 {
+	cs := fieldIndex("cstat")
+	n := 0
+	for _, slot := range idx {
+		if !math.IsNaN(w.ring[slot][cs]) {
+			n++
+		}
+	}
+	if n >= 3 {
+		return w.slope(idx, cs, false)
+	}
+	return w.slope(idx, fieldIndex("fit_c"), true)
+}
+
+// slope is the least-squares slope of field f against start time, per hour.
+func (w *Window) slope(idx []int, f int, reliableOnly bool) float64 {
+	var st, sy, n float64
+	for _, slot := range idx {
+		v := w.ring[slot][f]
+		if math.IsNaN(v) || (reliableOnly && w.flags[slot]&(FlagFitUnreliable|FlagActiveEffort) != 0) {
+			continue
+		}
+		st += w.ring[slot][0]
+		sy += v
+		n++
+	}
+	if n < 3 {
+		return nan
+	}
+	mt, my := st/n, sy/n
+	var stt, sty float64
+	for _, slot := range idx {
+		v := w.ring[slot][f]
+		if math.IsNaN(v) || (reliableOnly && w.flags[slot]&(FlagFitUnreliable|FlagActiveEffort) != 0) {
+			continue
+		}
+		d := w.ring[slot][0] - mt
+		stt += d * d
+		sty += d * (v - my)
+	}
+	if stt == 0 {
+		return nan
+	}
+	return sty / stt * 3600
+}
+
+func (w *Window) remember(b *Breath) {
+	p := part{t: b.TStart, peak: b.PPeak, res: b.PPeak - b.PPlat, el: b.PPlat - b.PEEP, fitRes: nan, fitEl: nan}
+	if b.Reliable() && b.FitC > 0 {
+		p.fitEl = b.VTi / b.FitC
+		p.fitRes = b.PPeak - b.PEEP - p.fitEl
+	}
+	w.hist[w.hHead] = p
+	w.hHead = (w.hHead + 1) % len(w.hist)
+	w.hN = min(w.hN+1, len(w.hist))
+}
+
+// attribute compares the window's medians with the baseline's.
+func (w *Window) attribute(now float64) Attribution {
+	winFrom := now - w.cfg.Span
+	baseFrom := winFrom - w.cfg.Baseline
+	med := func(from, to float64, get func(p *part) float64) (float64, int) {
+		x := w.scratch[:0]
+		for k := 1; k <= w.hN; k++ {
+			p := &w.hist[(w.hHead-k+len(w.hist))%len(w.hist)]
+			if p.t >= from && p.t < to {
+				if v := get(p); !math.IsNaN(v) {
+					x = append(x, v)
+				}
+			}
+		}
+		s := summarize(x)
+		return s.Median, s.N
+	}
+	peak := func(p *part) float64 { return p.peak }
+	basePeak, nb := med(baseFrom, winFrom, peak)
+	curPeak, nc := med(winFrom, math.Inf(1), peak)
+	a := Attribution{Cause: RiseNone, PeakRise: nan, ResistiveRise: nan, ElasticRise: nan, BaselineBreaths: nb}
+	if nb < 3 || nc < 3 {
+		return a
+	}
+	a.PeakRise = curPeak - basePeak
+	res, el := func(p *part) float64 { return p.res }, func(p *part) float64 { return p.el }
+	a.Method = "plateau"
+	rb, n1 := med(baseFrom, winFrom, res)
+	rc, n2 := med(winFrom, math.Inf(1), res)
+	if n1 < 3 || n2 < 3 {
+		a.Method = "fit"
+		res, el = func(p *part) float64 { return p.fitRes }, func(p *part) float64 { return p.fitEl }
+		rb, n1 = med(baseFrom, winFrom, res)
+		rc, n2 = med(winFrom, math.Inf(1), res)
+		if n1 < 3 || n2 < 3 {
+			a.Method = ""
+			return a
+		}
+	}
+	eb, _ := med(baseFrom, winFrom, el)
+	ec, _ := med(winFrom, math.Inf(1), el)
+	a.ResistiveRise, a.ElasticRise = rc-rb, ec-eb
+	if a.PeakRise < w.cfg.RiseMin {
+		return a
+	}
+	r, e := math.Max(a.ResistiveRise, 0), math.Max(a.ElasticRise, 0)
+	switch share := r / (r + e); {
+	case r+e == 0:
+	case share >= 0.7:
+		a.Cause = RiseResistive
+	case share <= 0.3:
+		a.Cause = RiseElastic
+	default:
+		a.Cause = RiseBoth
+	}
+	return a
+}
