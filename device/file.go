@@ -8,6 +8,7 @@ import (
 	"io"
 	"io/fs"
 	"os"
+	"sync/atomic"
 )
 
 // File is a recorded stream read from disk, gzip-compressed or not (told
@@ -16,6 +17,8 @@ type File struct {
 	f     *os.File
 	r     io.Reader
 	pacer Pacer
+	read  atomic.Int64 // bytes read from disk
+	size  int64
 }
 
 // OpenFile opens a recording. speed is as for Pacer: 0 for as fast as
@@ -28,16 +31,22 @@ func OpenFile(path string, speed float64) (*File, error) {
 		}
 		return nil, fmt.Errorf("open recording: %w", err)
 	}
-	if st, err := f.Stat(); err == nil && st.IsDir() {
+	st, err := f.Stat()
+	if err == nil && st.IsDir() {
 		f.Close()
 		return nil, fmt.Errorf("%s is a directory, not a recording", path)
 	}
-	r, err := maybeGzip(f)
+	file := &File{f: f, pacer: Pacer{Speed: speed}}
+	if err == nil {
+		file.size = st.Size()
+	}
+	r, err := maybeGzip(countingReader{f, &file.read})
 	if err != nil {
 		f.Close()
 		return nil, fmt.Errorf("%s: %w", path, err)
 	}
-	return &File{f: f, r: r, pacer: Pacer{Speed: speed}}, nil
+	file.r = r
+	return file, nil
 }
 
 // maybeGzip returns a reader that decompresses r when it starts with the
@@ -60,6 +69,21 @@ func (f *File) Read(p []byte) (int, error) { return f.r.Read(p) }
 
 // Close closes the file.
 func (f *File) Close() error { return f.f.Close() }
+
+// Progress returns the bytes read from disk so far and the file's size.
+// It is safe to call from any goroutine.
+func (f *File) Progress() (read, size int64) { return f.read.Load(), f.size }
+
+type countingReader struct {
+	r io.Reader
+	n *atomic.Int64
+}
+
+func (c countingReader) Read(p []byte) (int, error) {
+	n, err := c.r.Read(p)
+	c.n.Add(int64(n))
+	return n, err
+}
 
 // Pacer returns the file's pacer.
 func (f *File) Pacer() *Pacer { return &f.pacer }

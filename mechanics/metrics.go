@@ -4,6 +4,9 @@ import "math"
 
 var nan = math.NaN()
 
+// siPoints is about the most samples the stress-index fit uses.
+const siPoints = 48
+
 // compute fills b from the buffer's samples [0, j); sample j is the next
 // breath's start.
 func (s *Segmenter) compute(b *Breath, j int) {
@@ -254,25 +257,37 @@ func (s *Segmenter) plateau(from, e int) float64 {
 	return mean
 }
 
-// triggerDip reports whether pressure dipped TriggerDip or more below its
-// level in the 0.3 s before the next start — the patient pulling on the
-// circuit (Thille et al., Intensive Care Med 2006;32:1515: a drop of at
-// least 0.5 cmH2O marks an effort).
+// triggerDip reports whether, in the 0.3 s before the next start,
+// pressure dipped TriggerDip or more below its level just before while
+// flow turned inward — the patient pulling on the circuit (Thille et al.,
+// Intensive Care Med 2006;32:1515: a drop of at least 0.5 cmH2O with
+// expiratory flow falling toward zero marks an effort). Both are smoothed
+// over 3 samples so that noise alone does not qualify.
 func (s *Segmenter) triggerDip(e, j int) bool {
 	tEnd := s.t[j]
 	var ref float64
 	n := 0
-	lowest := math.Inf(1)
 	for i := e; i < j; i++ {
-		switch d := tEnd - s.t[i]; {
-		case d > 0.3 && d <= 0.6:
+		if d := tEnd - s.t[i]; d > 0.3 && d <= 0.6 {
 			ref += s.paw[i]
 			n++
-		case d <= 0.3 && i > e && i+1 < j:
-			lowest = math.Min(lowest, (s.paw[i-1]+s.paw[i]+s.paw[i+1])/3)
 		}
 	}
-	return n > 0 && ref/float64(n)-lowest >= s.cfg.TriggerDip
+	if n == 0 {
+		return false
+	}
+	ref /= float64(n)
+	for i := e + 1; i+1 < j; i++ {
+		if tEnd-s.t[i] > 0.3 {
+			continue
+		}
+		p := (s.paw[i-1] + s.paw[i] + s.paw[i+1]) / 3
+		f := (s.flow[i-1] + s.flow[i] + s.flow[i+1]) / 3
+		if ref-p >= s.cfg.TriggerDip && f > s.cfg.StartFlow/5 {
+			return true
+		}
+	}
+	return false
 }
 
 // patientStart reports inspiratory flow of at least StartFlow/2 while
@@ -351,32 +366,45 @@ func (s *Segmenter) fit(b *Breath, j int) {
 // the constant-flow part of inflation (from a tenth of it to its last
 // sample before the flow ends) and returns b (Ranieri et al.,
 // Anesthesiology 2000;93:1320). For each b the fit is linear in a and c;
-// b is found by golden-section search on the residual over [0.2, 5].
+// b is found by golden-section search on the residual over [0.2, 5] to
+// 0.005, with t^b as exp(b·ln t) from logarithms taken once; above
+// 2·siPoints samples, every k-th so that about siPoints remain.
 func (s *Segmenter) stressIndex(flowEnd int) float64 {
 	lo, hi := flowEnd/10+1, flowEnd-1
 	if hi-lo < 6 {
 		return nan
 	}
-	t0 := s.t[0]
+	step := max(1, (hi-lo)/siPoints)
+	lt := s.scratch[:0] // ln t, then the pressures
+	var my float64
+	m := 0
+	for i := lo; i < hi; i += step {
+		lt = append(lt, math.Log(s.t[i]-s.t[0]))
+		my += s.paw[i]
+		m++
+	}
+	for i := lo; i < hi; i += step {
+		lt = append(lt, s.paw[i])
+	}
+	lt, py := lt[:m], lt[m:2*m]
+	n := float64(m)
+	my /= n
+	var syy float64
+	for k := range py {
+		py[k] -= my
+		syy += py[k] * py[k]
+	}
+	// sse is the residual of the best a, c for exponent b: syy − sxy²/sxx
 	sse := func(b float64) float64 {
-		x := s.scratch[:0]
-		var mx, my float64
-		for i := lo; i < hi; i++ {
-			xi := math.Pow(s.t[i]-t0, b)
-			x = append(x, xi)
-			mx += xi
-			my += s.paw[i]
+		var sx, sxx, sxy float64
+		for k, l := range lt {
+			x := math.Exp(b * l)
+			sx += x
+			sxx += x * x
+			sxy += x * py[k]
 		}
-		n := float64(hi - lo)
-		mx, my = mx/n, my/n
-		var sxx, sxy, syy float64
-		for k, i := 0, lo; i < hi; k, i = k+1, i+1 {
-			dx, dy := x[k]-mx, s.paw[i]-my
-			sxx += dx * dx
-			sxy += dx * dy
-			syy += dy * dy
-		}
-		if sxx == 0 {
+		sxx -= sx * sx / n
+		if sxx <= 0 {
 			return math.Inf(1)
 		}
 		return syy - sxy*sxy/sxx
@@ -385,7 +413,7 @@ func (s *Segmenter) stressIndex(flowEnd int) float64 {
 	a, z := 0.2, 5.0
 	x1, x2 := z-phi*(z-a), a+phi*(z-a)
 	f1, f2 := sse(x1), sse(x2)
-	for z-a > 1e-3 {
+	for z-a > 5e-3 {
 		if f1 < f2 {
 			z, x2, f2 = x2, x1, f1
 			x1 = z - phi*(z-a)

@@ -113,6 +113,17 @@ type Window struct {
 	scratch []float64
 	idx     []int
 	trend   Trend
+	base    baseline // cached: the baseline moves slowly
+	last    float64  // the latest breath's end, s
+	stale   bool     // trend not computed since the latest Add
+}
+
+// baseline holds the baseline window's medians, recomputed every five
+// minutes of stream time (a sixth of its default length).
+type baseline struct {
+	at                       float64 // stream time of the computation; NaN before
+	peak, res, el, fres, fel float64
+	nPeak, nRes, nFres       int
 }
 
 // NewWindow returns a window; cfg is completed with its defaults.
@@ -131,33 +142,41 @@ func NewWindow(cfg WindowConfig) (*Window, error) {
 	w.scratch = make([]float64, 0, max(hcap, cfg.Breaths))
 	w.trend.Stats = make([]Stat, len(Fields))
 	w.idx = make([]int, 0, cfg.Breaths)
+	w.base.at = nan
 	return w, nil
 }
 
-// Add takes a breath and returns the updated trend, valid until the next
-// Add.
-func (w *Window) Add(b *Breath) *Trend {
+// Add takes a breath. It only stores it; Trend computes the summary.
+func (w *Window) Add(b *Breath) {
 	w.ring[w.head] = b.Values(w.ring[w.head][:0])
 	w.flags[w.head] = b.Flags
 	w.head = (w.head + 1) % len(w.ring)
 	w.n = min(w.n+1, len(w.ring))
 	w.remember(b)
+	w.last, w.stale = b.TEnd, true
+}
 
+// Trend returns the rolling summary after the latest breath, valid until
+// the next Add. It is computed on the first call after an Add.
+func (w *Window) Trend() *Trend {
 	tr := &w.trend
-	tr.At = b.TEnd
-	from := b.TEnd - w.cfg.Span
-	idx := w.inWindow(from)
+	if !w.stale {
+		return tr
+	}
+	w.stale = false
+	tr.At = w.last
+	idx := w.inWindow(w.last - w.cfg.Span)
 	tr.N = len(idx)
 	tr.Span = 0
 	if tr.N > 0 {
-		tr.Span = b.TEnd - w.ring[idx[0]][0]
+		tr.Span = w.last - w.ring[idx[0]][0]
 	}
 	for f := range Fields {
 		tr.Stats[f] = w.stat(idx, f)
 	}
 	tr.CSlope = w.complianceSlope(idx)
 	tr.DPSlope = w.slope(idx, fieldIndex("dp"), false)
-	tr.Rise = w.attribute(b.TEnd)
+	tr.Rise = w.attribute(w.last, idx)
 	return tr
 }
 
@@ -252,57 +271,96 @@ func (w *Window) slope(idx []int, f int, reliableOnly bool) float64 {
 }
 
 func (w *Window) remember(b *Breath) {
-	p := part{t: b.TStart, peak: b.PPeak, res: b.PPeak - b.PPlat, el: b.PPlat - b.PEEP, fitRes: nan, fitEl: nan}
-	if b.Reliable() && b.FitC > 0 {
-		p.fitEl = b.VTi / b.FitC
-		p.fitRes = b.PPeak - b.PEEP - p.fitEl
-	}
-	w.hist[w.hHead] = p
+	w.hist[w.hHead] = partOf(w.ring[(w.head-1+len(w.ring))%len(w.ring)], b.Flags)
 	w.hHead = (w.hHead + 1) % len(w.hist)
 	w.hN = min(w.hN+1, len(w.hist))
 }
 
-// attribute compares the window's medians with the baseline's.
-func (w *Window) attribute(now float64) Attribution {
-	winFrom := now - w.cfg.Span
-	baseFrom := winFrom - w.cfg.Baseline
-	med := func(from, to float64, get func(p *part) float64) (float64, int) {
-		x := w.scratch[:0]
-		for k := 1; k <= w.hN; k++ {
-			p := &w.hist[(w.hHead-k+len(w.hist))%len(w.hist)]
-			if p.t >= from && p.t < to {
-				if v := get(p); !math.IsNaN(v) {
-					x = append(x, v)
-				}
+// median of one part of the breaths that started in [from, to).
+func (w *Window) median(from, to float64, get func(p part) float64) (float64, int) {
+	x := w.scratch[:0]
+	for k := 1; k <= w.hN; k++ {
+		p := w.hist[(w.hHead-k+len(w.hist))%len(w.hist)]
+		if p.t < from {
+			break // older ones follow
+		}
+		if p.t < to {
+			if v := get(p); !math.IsNaN(v) {
+				x = append(x, v)
 			}
 		}
-		s := summarize(x)
-		return s.Median, s.N
 	}
-	peak := func(p *part) float64 { return p.peak }
-	basePeak, nb := med(baseFrom, winFrom, peak)
-	curPeak, nc := med(winFrom, math.Inf(1), peak)
-	a := Attribution{Cause: RiseNone, PeakRise: nan, ResistiveRise: nan, ElasticRise: nan, BaselineBreaths: nb}
-	if nb < 3 || nc < 3 {
+	s := summarize(x)
+	return s.Median, s.N
+}
+
+func partPeak(p part) float64 { return p.peak }
+func partRes(p part) float64  { return p.res }
+func partEl(p part) float64   { return p.el }
+func partFres(p part) float64 { return p.fitRes }
+func partFel(p part) float64  { return p.fitEl }
+
+// current is the median of one part over the window's breaths.
+func (w *Window) current(idx []int, get func(p part) float64) (float64, int) {
+	x := w.scratch[:0]
+	for _, slot := range idx {
+		if v := get(partOf(w.ring[slot], w.flags[slot])); !math.IsNaN(v) {
+			x = append(x, v)
+		}
+	}
+	s := summarize(x)
+	return s.Median, s.N
+}
+
+var (
+	iPeak, iPlat, iPEEP = fieldIndex("ppeak"), fieldIndex("pplat"), fieldIndex("peep")
+	iVTi, iFitC         = fieldIndex("vti"), fieldIndex("fit_c")
+)
+
+// partOf derives a breath's parts from its stored values.
+func partOf(v []float64, f Flags) part {
+	p := part{t: v[0], peak: v[iPeak], res: v[iPeak] - v[iPlat], el: v[iPlat] - v[iPEEP], fitRes: nan, fitEl: nan}
+	if f&(FlagFitUnreliable|FlagActiveEffort) == 0 && v[iFitC] > 0 {
+		p.fitEl = v[iVTi] / v[iFitC]
+		p.fitRes = v[iPeak] - v[iPEEP] - p.fitEl
+	}
+	return p
+}
+
+// attribute compares the window's medians with the baseline's: the
+// breaths of the Baseline seconds before the window.
+func (w *Window) attribute(now float64, idx []int) Attribution {
+	winFrom := now - w.cfg.Span
+	baseFrom := winFrom - w.cfg.Baseline
+	b := &w.base
+	if math.IsNaN(b.at) || now-b.at >= 300 || now < b.at {
+		b.at = now
+		b.peak, b.nPeak = w.median(baseFrom, winFrom, partPeak)
+		b.res, b.nRes = w.median(baseFrom, winFrom, partRes)
+		b.el, _ = w.median(baseFrom, winFrom, partEl)
+		b.fres, b.nFres = w.median(baseFrom, winFrom, partFres)
+		b.fel, _ = w.median(baseFrom, winFrom, partFel)
+	}
+	curPeak, nc := w.current(idx, partPeak)
+	a := Attribution{Cause: RiseNone, PeakRise: nan, ResistiveRise: nan, ElasticRise: nan, BaselineBreaths: b.nPeak}
+	if b.nPeak < 3 || nc < 3 {
 		return a
 	}
-	a.PeakRise = curPeak - basePeak
-	res, el := func(p *part) float64 { return p.res }, func(p *part) float64 { return p.el }
+	a.PeakRise = curPeak - b.peak
 	a.Method = "plateau"
-	rb, n1 := med(baseFrom, winFrom, res)
-	rc, n2 := med(winFrom, math.Inf(1), res)
-	if n1 < 3 || n2 < 3 {
+	rc, n := w.current(idx, partRes)
+	ec, _ := w.current(idx, partEl)
+	rb, eb := b.res, b.el
+	if b.nRes < 3 || n < 3 {
 		a.Method = "fit"
-		res, el = func(p *part) float64 { return p.fitRes }, func(p *part) float64 { return p.fitEl }
-		rb, n1 = med(baseFrom, winFrom, res)
-		rc, n2 = med(winFrom, math.Inf(1), res)
-		if n1 < 3 || n2 < 3 {
+		rc, n = w.current(idx, partFres)
+		ec, _ = w.current(idx, partFel)
+		rb, eb = b.fres, b.fel
+		if b.nFres < 3 || n < 3 {
 			a.Method = ""
 			return a
 		}
 	}
-	eb, _ := med(baseFrom, winFrom, el)
-	ec, _ := med(winFrom, math.Inf(1), el)
 	a.ResistiveRise, a.ElasticRise = rc-rb, ec-eb
 	if a.PeakRise < w.cfg.RiseMin {
 		return a

@@ -11,15 +11,36 @@ import (
 	"time"
 
 	"breathd/device"
+	"breathd/mechanics"
 
 	"github.com/rs/zerolog"
 )
 
+// Sink receives each device's breaths. It is called from the device's
+// loop and must not keep b or w after it returns; w.Trend() gives the
+// rolling summary, computed once per breath for all sinks that ask.
+type Sink interface {
+	Breath(device string, b *mechanics.Breath, w *mechanics.Window)
+}
+
+// Sinks passes each breath to every sink in turn.
+type Sinks []Sink
+
+// Breath calls every sink.
+func (s Sinks) Breath(device string, b *mechanics.Breath, w *mechanics.Window) {
+	for _, k := range s {
+		k.Breath(device, b, w)
+	}
+}
+
 // Config is one device's loop settings.
 type Config struct {
-	Device string        // device id, for logs and reports
-	Format Format        // how to decode the stream
-	Every  time.Duration // how often Report is called while running; default 5 s
+	Device    string                 // device id, for logs and reports
+	Format    Format                 // how to decode the stream
+	Mechanics mechanics.Config       // breath detection and metrics
+	Window    mechanics.WindowConfig // the rolling window
+	Sink      Sink                   // receives breaths; may be nil
+	Every     time.Duration          // how often Report is called while running; default 5 s
 	// Report, if set, is called every Every from a separate goroutine and
 	// once more, with Final set, when Run ends.
 	Report func(Status)
@@ -30,7 +51,9 @@ type Config struct {
 type Status struct {
 	Device    string
 	Counts    Counts
-	Health    device.Health // the source's, when it reports one
+	Breaths   int64           // breaths completed
+	Drops     mechanics.Drops // breaths in progress dropped, by cause
+	Health    device.Health   // the source's, when it reports one
 	HasHealth bool
 	Elapsed   time.Duration // since Run started
 	Final     bool
@@ -44,6 +67,13 @@ type Status struct {
 func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
 	l := &loop{cfg: cfg, src: src, start: time.Now()}
 	dec, err := NewDecoder(snapReader{l}, cfg.Format)
+	if err == nil {
+		// sized for up to 1000 Hz whatever the stream turns out to be
+		l.seg, err = mechanics.NewSegmenter(cfg.Mechanics, 1000)
+	}
+	if err == nil {
+		l.win, err = mechanics.NewWindow(cfg.Window)
+	}
 	if err != nil {
 		src.Close()
 		return Status{Device: cfg.Device}, err
@@ -79,11 +109,15 @@ type loop struct {
 	cfg   Config
 	src   io.ReadCloser
 	dec   *Decoder
+	seg   *mechanics.Segmenter
+	win   *mechanics.Window
 	pacer *device.Pacer
 	start time.Time
 
-	mu   sync.Mutex
-	snap Counts
+	mu    sync.Mutex
+	snap  Counts
+	snapB int64
+	snapD mechanics.Drops
 }
 
 func (l *loop) run(ctx context.Context) error {
@@ -113,6 +147,12 @@ func (l *loop) run(ctx context.Context) error {
 				return nil
 			}
 		}
+		if b := l.seg.Add(s.T, s.Paw, s.Flow, s.Gap); b != nil {
+			l.win.Add(b)
+			if l.cfg.Sink != nil {
+				l.cfg.Sink.Breath(l.cfg.Device, b, l.win)
+			}
+		}
 	}
 }
 
@@ -137,12 +177,13 @@ func (r snapReader) Read(p []byte) (int, error) {
 func (l *loop) snapshot() {
 	l.mu.Lock()
 	l.snap = l.dec.counts
+	l.snapB, l.snapD = l.seg.Breaths(), l.seg.Drops()
 	l.mu.Unlock()
 }
 
 func (l *loop) status() Status {
 	l.mu.Lock()
-	st := Status{Device: l.cfg.Device, Counts: l.snap, Elapsed: time.Since(l.start)}
+	st := Status{Device: l.cfg.Device, Counts: l.snap, Breaths: l.snapB, Drops: l.snapD, Elapsed: time.Since(l.start)}
 	l.mu.Unlock()
 	if h, ok := l.src.(device.HealthReporter); ok {
 		st.Health, st.HasHealth = h.Health(), true
@@ -173,6 +214,10 @@ func (st Status) String() string {
 	}
 	if c.Samples > 0 {
 		fmt.Fprintf(&b, "  span %.1f s", c.LastT-c.FirstT)
+	}
+	fmt.Fprintf(&b, "  breaths %d", st.Breaths)
+	if d := st.Drops; d.Gap+d.Open+d.TooLong > 0 {
+		fmt.Fprintf(&b, " (dropped: gap %d, open circuit %d, too long %d)", d.Gap, d.Open, d.TooLong)
 	}
 	fmt.Fprintf(&b, "  bad %d", c.BadTotal())
 	if c.BadTotal() > 0 {

@@ -35,13 +35,14 @@ type yamlFile struct {
 }
 
 type deviceConfig struct {
-	ID     string               `yaml:"id"`
-	Serial *device.SerialConfig `yaml:"serial"`
-	File   *fileSource          `yaml:"file"`
-	Stdin  bool                 `yaml:"stdin"`
-	Sim    *simSource           `yaml:"simulate"`
-	Format formatConfig         `yaml:"format"`
-	Record *recordConfig        `yaml:"record"`
+	ID      string               `yaml:"id"`
+	Serial  *device.SerialConfig `yaml:"serial"`
+	File    *fileSource          `yaml:"file"`
+	Stdin   bool                 `yaml:"stdin"`
+	Sim     *simSource           `yaml:"simulate"`
+	Patient mechanics.Patient    `yaml:"patient"`
+	Format  formatConfig         `yaml:"format"`
+	Record  *recordConfig        `yaml:"record"`
 }
 
 type fileSource struct {
@@ -356,6 +357,11 @@ func (d *deviceConfig) validate(i int) error {
 	}
 	if sources != 1 {
 		return field(fmt.Errorf("give exactly one source (serial, file, stdin or simulate); found %d", sources), "devices", i)
+	}
+	if d.Patient.Sex != "" || d.Patient.HeightCm != 0 {
+		if _, err := mechanics.PredictedBodyWeight(d.Patient.Sex, d.Patient.HeightCm); err != nil {
+			return field(err, "devices", i, "patient")
+		}
 	}
 	if err := d.Format.format().Validate(); err != nil {
 		return field(err, "devices", i, "format")

@@ -10,3 +10,8 @@ func appendLine(b []byte, t float64) []byte {
 	b = append(b, ",5.0,0.0\n"...)
 	return b
 }
+
+func parseF(s string) float64 {
+	v, _ := strconv.ParseFloat(s, 64)
+	return v
+}

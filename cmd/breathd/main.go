@@ -31,6 +31,7 @@ NOTICE: %s
 Usage:
   breathd run --config FILE        run the devices of a configuration file
   breathd replay [flags] FILE      run on a recorded stream (FILE or - for stdin)
+  breathd analyze [flags] FILE     per-breath mechanics of a recording, as fast as possible (--csv PATH|-)
   breathd simulate [flags]         write a simulated patient's stream to a file, stdout or a pseudo-terminal
   breathd check FILE               validate a configuration file and show what it would run
   breathd ports                    list serial ports with their USB details
@@ -78,6 +79,8 @@ func dispatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		return cmdRun(ctx, rest, stdout, stderr)
 	case "replay":
 		return cmdReplay(ctx, rest, stdout, stderr)
+	case "analyze":
+		return cmdAnalyze(ctx, rest, stdout, stderr)
 	case "simulate":
 		return cmdSimulate(ctx, rest, stdout, stderr)
 	case "check":

@@ -10,6 +10,7 @@ import (
 	"time"
 
 	"breathd/device"
+	"breathd/mechanics"
 	"breathd/stream"
 
 	"github.com/rs/zerolog"
@@ -17,9 +18,10 @@ import (
 
 // deviceRun is one device ready to start.
 type deviceRun struct {
-	id     string
-	src    io.ReadCloser
-	format stream.Format
+	id        string
+	src       io.ReadCloser
+	format    stream.Format
+	mechanics mechanics.Config
 }
 
 func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -31,11 +33,17 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	record := fs.String("record", "", "also record the stream raw into this directory")
 	level := fs.String("log-level", "info", "log level: debug, info, warn or error")
 	every := fs.Duration("report-every", 5*time.Second, "how often to print the counters")
+	var pf patientFlags
+	pf.register(fs)
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
 	if fs.NArg() != 1 {
 		return usagef("replay takes one recording (a file, or - for stdin); got %d", fs.NArg())
+	}
+	mcfg, err := pf.config()
+	if err != nil {
+		return err
 	}
 	path := fs.Arg(0)
 	lvl, err := parseLevel(*level)
@@ -76,7 +84,7 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		}
 		src = rec
 	}
-	return runDevices(ctx, []deviceRun{{id: dev, src: src, format: f}}, *every, stdout, log)
+	return runDevices(ctx, []deviceRun{{id: dev, src: src, format: f, mechanics: mcfg}}, *every, stdout, log)
 }
 
 func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -125,7 +133,8 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 			closeAll()
 			return fmt.Errorf("device %s: %w", d.ID, err)
 		}
-		runs = append(runs, deviceRun{id: d.ID, src: src, format: d.Format.format()})
+		runs = append(runs, deviceRun{id: d.ID, src: src, format: d.Format.format(),
+			mechanics: mechanics.Config{Sex: d.Patient.Sex, HeightCm: d.Patient.HeightCm}})
 	}
 	return runDevices(ctx, runs, cfg.ReportEvery, stdout, log)
 }
@@ -173,10 +182,10 @@ func openSource(d *deviceConfig, log zerolog.Logger) (io.ReadCloser, error) {
 // is done, printing their counters. A device that fails is logged and
 // does not stop the others.
 func runDevices(ctx context.Context, runs []deviceRun, every time.Duration, stdout io.Writer, log zerolog.Logger) error {
-	var mu sync.Mutex
+	con := newConsole(stdout)
 	report := func(st stream.Status) {
-		mu.Lock()
-		defer mu.Unlock()
+		con.mu.Lock()
+		defer con.mu.Unlock()
 		fmt.Fprintln(stdout, st.String())
 	}
 	errs := make([]error, len(runs))
@@ -184,7 +193,8 @@ func runDevices(ctx context.Context, runs []deviceRun, every time.Duration, stdo
 	for i, r := range runs {
 		wg.Go(func() {
 			dlog := log.With().Str("device", r.id).Logger()
-			_, err := stream.Run(ctx, r.src, stream.Config{Device: r.id, Format: r.format, Every: every, Report: report, Log: dlog})
+			_, err := stream.Run(ctx, r.src, stream.Config{Device: r.id, Format: r.format, Mechanics: r.mechanics,
+				Every: every, Report: report, Log: dlog, Sink: con})
 			if err != nil {
 				dlog.Error().Err(err).Msg("device stopped")
 				errs[i] = err

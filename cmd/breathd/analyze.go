@@ -1,0 +1,250 @@
+package main
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"math"
+	"math/rand/v2"
+	"os"
+	"slices"
+	"strings"
+	"time"
+
+	"breathd/device"
+	"breathd/mechanics"
+	"breathd/stream"
+
+	"github.com/mattn/go-isatty"
+	"github.com/schollz/progressbar/v3"
+)
+
+func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("analyze", "analyze [flags] FILE|-", stderr)
+	var ff formatFlags
+	ff.register(fs)
+	var pf patientFlags
+	pf.register(fs)
+	csvPath := fs.String("csv", "", "write one row per breath as CSV to this file, or - for stdout")
+	if err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	if fs.NArg() != 1 {
+		return usagef("analyze takes one recording (a file, or - for stdin); got %d", fs.NArg())
+	}
+	path := fs.Arg(0)
+	f, err := ff.format()
+	if err != nil {
+		return err
+	}
+	mcfg, err := pf.config()
+	if err != nil {
+		return err
+	}
+	var src io.ReadCloser
+	var file *device.File
+	if path == "-" {
+		src = device.Stdin()
+	} else {
+		if file, err = device.OpenFile(path, 0); err != nil {
+			return err
+		}
+		src = file
+	}
+	sum := newSummary()
+	sinks := stream.Sinks{sum}
+	var csv *stream.CSVWriter
+	var csvFile *os.File
+	switch *csvPath {
+	case "":
+	case "-":
+		csv = stream.NewCSVWriter(stdout)
+	default:
+		if csvFile, err = os.Create(*csvPath); err != nil {
+			src.Close()
+			return fmt.Errorf("--csv: %w", err)
+		}
+		csv = stream.NewCSVWriter(csvFile)
+	}
+	if csv != nil {
+		sinks = append(sinks, csv)
+	}
+	stopBar := showProgress(file, stderr)
+	start := time.Now()
+	st, runErr := stream.Run(ctx, src, stream.Config{Device: idFromPath(path), Format: f, Mechanics: mcfg, Sink: sinks})
+	stopBar()
+	if csv != nil {
+		if err := csv.Flush(); err != nil && runErr == nil {
+			runErr = fmt.Errorf("--csv: %w", err)
+		}
+	}
+	if csvFile != nil {
+		if err := csvFile.Close(); err != nil && runErr == nil {
+			runErr = fmt.Errorf("--csv: %w", err)
+		}
+	}
+	sum.print(stderr, st, time.Since(start))
+	return runErr
+}
+
+// patientFlags give predicted body weight its inputs.
+type patientFlags struct {
+	sex    string
+	height float64
+}
+
+func (p *patientFlags) register(fs interface {
+	StringVar(*string, string, string, string)
+	Float64Var(*float64, string, float64, string)
+}) {
+	fs.StringVar(&p.sex, "sex", "", "patient sex, male or female, for vt_pbw (with --height-cm)")
+	fs.Float64Var(&p.height, "height-cm", 0, "patient height in cm, for vt_pbw (with --sex)")
+}
+
+func (p *patientFlags) config() (mechanics.Config, error) {
+	c := mechanics.Config{Sex: p.sex, HeightCm: p.height}
+	c.Defaults()
+	if err := c.Validate(); err != nil {
+		return c, usagef("--sex/--height-cm: %v", err)
+	}
+	return c, nil
+}
+
+// showProgress draws a progress bar on a terminal once reading a file
+// takes more than a second. The returned func stops it.
+func showProgress(file *device.File, stderr io.Writer) func() {
+	f, ok := stderr.(*os.File)
+	if file == nil || !ok || !isatty.IsTerminal(f.Fd()) {
+		return func() {}
+	}
+	done := make(chan struct{})
+	finished := make(chan struct{})
+	go func() {
+		defer close(finished)
+		var bar *progressbar.ProgressBar
+		tick := time.NewTicker(100 * time.Millisecond)
+		defer tick.Stop()
+		start := time.Now()
+		for {
+			select {
+			case <-done:
+				if bar != nil {
+					bar.Finish()
+					bar.Clear()
+				}
+				return
+			case <-tick.C:
+				read, size := file.Progress()
+				if bar == nil && time.Since(start) > time.Second && size > 0 {
+					bar = progressbar.NewOptions64(size, progressbar.OptionSetWriter(stderr),
+						progressbar.OptionSetDescription("analyze"), progressbar.OptionShowBytes(true),
+						progressbar.OptionClearOnFinish(), progressbar.OptionThrottle(100*time.Millisecond))
+				}
+				if bar != nil {
+					bar.Set64(read)
+				}
+			}
+		}
+	}()
+	return func() { close(done); <-finished }
+}
+
+// summaryFields are the medians the summary prints.
+var summaryFields = []string{"rr", "vti", "ppeak", "pplat", "peep", "dp", "cstat", "fit_r", "fit_c", "mp"}
+
+// reservoirSize bounds the values kept per field: medians are exact up to
+// this many breaths and from a uniform sample beyond, so memory does not
+// grow with the file.
+const reservoirSize = 4096
+
+// summary collects what analyze prints at the end.
+type summary struct {
+	n     int64
+	first float64
+	last  float64
+	flags map[string]int64
+	res   [][]float64
+	seen  []int64
+	rng   *rand.Rand
+}
+
+func newSummary() *summary {
+	s := &summary{flags: map[string]int64{}, res: make([][]float64, len(summaryFields)),
+		seen: make([]int64, len(summaryFields)), rng: rand.New(rand.NewPCG(1, 2))}
+	return s
+}
+
+func (s *summary) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
+	if s.n == 0 {
+		s.first = b.TStart
+	}
+	s.n++
+	s.last = b.TEnd
+	for _, w := range b.Flags.Words() {
+		s.flags[w]++
+	}
+	for i, f := range summaryFields {
+		v, _ := b.Field(f)
+		if math.IsNaN(v) {
+			continue
+		}
+		s.seen[i]++
+		if len(s.res[i]) < reservoirSize {
+			s.res[i] = append(s.res[i], v)
+		} else if k := s.rng.Int64N(s.seen[i]); k < reservoirSize {
+			s.res[i][k] = v
+		}
+	}
+}
+
+func (s *summary) print(w io.Writer, st stream.Status, took time.Duration) {
+	c := st.Counts
+	fmt.Fprintf(w, "%s: %d breaths in %.1f s of stream (%d samples at %.1f Hz, %.2f s to analyze)\n",
+		st.Device, s.n, c.LastT-c.FirstT, c.Samples, c.RateHz(), took.Seconds())
+	fmt.Fprintf(w, "  bad lines %d", c.BadTotal())
+	if c.BadTotal() > 0 {
+		fmt.Fprintf(w, " (%s)", badCausesOf(&c))
+	}
+	d := st.Drops
+	fmt.Fprintf(w, "; gaps %d; breaths dropped: gap %d, open circuit %d, too long %d\n", c.Gaps, d.Gap, d.Open, d.TooLong)
+	if s.n == 0 {
+		return
+	}
+	fmt.Fprint(w, "  medians:")
+	for i, f := range summaryFields {
+		if len(s.res[i]) == 0 {
+			continue
+		}
+		x := slices.Clone(s.res[i])
+		slices.Sort(x)
+		fmt.Fprintf(w, " %s %.1f", f, x[len(x)/2])
+	}
+	fmt.Fprintln(w)
+	if len(s.flags) > 0 {
+		var parts []string
+		for _, k := range slices.Sorted(mapKeys(s.flags)) {
+			parts = append(parts, fmt.Sprintf("%s %d", k, s.flags[k]))
+		}
+		fmt.Fprintf(w, "  flags: %s\n", strings.Join(parts, ", "))
+	}
+}
+
+func mapKeys(m map[string]int64) func(func(string) bool) {
+	return func(yield func(string) bool) {
+		for k := range m {
+			if !yield(k) {
+				return
+			}
+		}
+	}
+}
+
+func badCausesOf(c *stream.Counts) string {
+	var parts []string
+	for i, n := range c.Bad {
+		if n > 0 {
+			parts = append(parts, fmt.Sprintf("%s %d", stream.Cause(i), n))
+		}
+	}
+	return strings.Join(parts, ", ")
+}

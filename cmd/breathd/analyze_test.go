@@ -1,0 +1,106 @@
+package main
+
+import (
+	"flag"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+)
+
+var update = flag.Bool("update", false, "rewrite the golden files in testdata")
+
+// TestAnalyzeDemoGolden: the per-breath CSV of the demo recording, against
+// testdata/demo.breaths.csv (go test ./cmd/breathd -run Golden -update
+// rewrites it after a deliberate change).
+func TestAnalyzeDemoGolden(t *testing.T) {
+	out := filepath.Join(t.TempDir(), "demo.csv")
+	code, _, errs := runCLI(t, "analyze", "--csv", out, "--sex", "male", "--height-cm", "178", "testdata/demo.txt.gz")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	got, _ := os.ReadFile(out)
+	golden := filepath.Join(root, "testdata", "demo.breaths.csv")
+	if *update {
+		if err := os.WriteFile(golden, got, 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	want, err := os.ReadFile(golden)
+	if err != nil {
+		t.Fatalf("%v (run with -update to create it)", err)
+	}
+	if string(got) != string(want) {
+		gl, wl := strings.Split(string(got), "\n"), strings.Split(string(want), "\n")
+		for i := range min(len(gl), len(wl)) {
+			if gl[i] != wl[i] {
+				t.Fatalf("line %d differs:\n got %s\nwant %s", i+1, gl[i], wl[i])
+			}
+		}
+		t.Fatalf("%d lines, golden has %d", len(gl), len(wl))
+	}
+	header := strings.SplitN(string(got), "\n", 2)[0]
+	const contract = "seq,t_start,t_end,ti,te,rr,ie,vti,vte,leak,ppeak,pplat,peep,pmean,dp,cstat,cdyn,rinsp,fit_r,fit_c,fit_p0,fit_r2,tau,mp,si,vt_pbw,eef,flags"
+	if header != contract {
+		t.Errorf("header %q", header)
+	}
+	if !strings.Contains(errs, "demo: 398 breaths") || !strings.Contains(errs, "bad lines 0") {
+		t.Errorf("summary: %s", errs)
+	}
+}
+
+// TestAnalyzeAgainstDemoTruth: the demo's per-breath values against the
+// simulator's truth file beside it (the lung model is the oracle).
+func TestAnalyzeAgainstDemoTruth(t *testing.T) {
+	code, out, errs := runCLI(t, "analyze", "--csv", "-", "testdata/demo.txt.gz")
+	if code != 0 {
+		t.Fatal(errs)
+	}
+	truth, _ := os.ReadFile(filepath.Join(root, "testdata", "demo.truth.csv"))
+	type row map[string]string
+	parse := func(text string) []row {
+		lines := strings.Split(strings.TrimSpace(text), "\n")
+		head := strings.Split(lines[0], ",")
+		var rows []row
+		for _, l := range lines[1:] {
+			r := row{}
+			for i, v := range strings.Split(l, ",") {
+				r[head[i]] = v
+			}
+			rows = append(rows, r)
+		}
+		return rows
+	}
+	found, want := parse(out), parse(string(truth))
+	matched, plateauOK := 0, 0
+	j := 0
+	for _, tr := range want {
+		ts := parseF(tr["t_start"])
+		for j < len(found) && parseF(found[j]["t_start"]) < ts-0.03 {
+			j++
+		}
+		if j == len(found) || parseF(found[j]["t_start"]) > ts+0.03 {
+			continue
+		}
+		f := found[j]
+		matched++
+		if tr["plateau"] != "" && f["pplat"] != "" && absDiff(f["pplat"], tr["plateau"]) <= 0.3 {
+			plateauOK++
+		}
+	}
+	// all but the first breath (the recording starts inside it) and the last
+	if matched < len(want)-2 {
+		t.Errorf("matched %d of %d true breaths", matched, len(want))
+	}
+	if plateauOK < 95 { // every fourth breath has a pause: about 99
+		t.Errorf("only %d plateaus within 0.3 cmH2O of the truth", plateauOK)
+	}
+}
+
+func absDiff(a, b string) float64 {
+	x, y := parseF(a), parseF(b)
+	if x > y {
+		return x - y
+	}
+	return y - x
+}

@@ -1,0 +1,56 @@
+package stream
+
+import (
+	"bytes"
+	"context"
+	"io"
+	"runtime"
+	"sync"
+	"testing"
+	"time"
+
+	"breathd/device"
+	"breathd/mechanics"
+)
+
+// simDay is 24 h at 100 Hz of the steady passive adult from the lung
+// simulator, as printed lines (8.64 M samples, about 175 MB).
+var simDay = sync.OnceValue(func() []byte {
+	sc := mechanics.Scenario{Seed: 1, RateHz: 100, Duration: 24 * time.Hour,
+		Settings: mechanics.Settings{Mode: mechanics.ModeVC, R: 10, C: 50, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3},
+		Sensor:   mechanics.Sensor{PawNoise: 0.2, FlowNoise: 0.5}}
+	sc.Defaults()
+	src := device.NewSim(sc, device.SimFormat{Header: true}, 0, nil)
+	var buf bytes.Buffer
+	buf.Grow(180 << 20)
+	io.Copy(&buf, src)
+	return buf.Bytes()
+})
+
+type countBreaths struct{ n int }
+
+func (c *countBreaths) Breath(string, *mechanics.Breath, *mechanics.Window) { c.n++ }
+
+// BenchmarkAnalyze runs the whole per-device loop — decode, breath
+// detection, every metric, the rolling window — over the day-long stream;
+// one op is the whole day. allocs/sample is the allocation per sample.
+func BenchmarkAnalyze(b *testing.B) {
+	data := simDay()
+	var samples int64
+	var ms0, ms1 runtime.MemStats
+	runtime.ReadMemStats(&ms0)
+	b.SetBytes(int64(len(data)))
+	b.ResetTimer()
+	for range b.N {
+		sink := &countBreaths{}
+		st, err := Run(context.Background(), io.NopCloser(bytes.NewReader(data)), Config{Device: "bench", Sink: sink})
+		if err != nil || sink.n < 21000 {
+			b.Fatalf("%v, %d breaths", err, sink.n)
+		}
+		samples += st.Counts.Samples
+	}
+	b.StopTimer()
+	runtime.ReadMemStats(&ms1)
+	b.ReportMetric(float64(samples)/b.Elapsed().Seconds(), "samples/s")
+	b.ReportMetric(float64(ms1.Mallocs-ms0.Mallocs)/float64(samples), "allocs/sample")
+}
