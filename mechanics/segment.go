@@ -135,6 +135,10 @@ func NewSegmenter(cfg Config, rateHz float64) (*Segmenter, error) {
 // Drops returns the dropped-breath counters.
 func (s *Segmenter) Drops() Drops { return s.drops }
 
+// Open reports whether the circuit looks open now: airway pressure under
+// OpenPaw without flow for OpenTime.
+func (s *Segmenter) Open() bool { return s.open }
+
 // Breaths is the number of breaths completed.
 func (s *Segmenter) Breaths() int64 { return s.seq }
 

@@ -75,11 +75,15 @@ type Attribution struct {
 
 // Trend is the rolling summary after a breath.
 type Trend struct {
-	At      float64 // stream time of the latest breath's end, s
-	N       int     // breaths in the window
-	Span    float64 // stream time the window covers, s
-	Stats   []Stat  // one per entry of Fields
-	CSlope  float64 // compliance slope, mL/cmH2O per hour (cstat, or fit_c without plateaus)
+	At     float64 // stream time of the latest breath's end, s
+	N      int     // breaths in the window
+	Span   float64 // stream time the window covers, s
+	Stats  []Stat  // one per entry of Fields
+	CSlope float64 // compliance slope, mL/cmH2O per hour (cstat, or fit_c without plateaus)
+	// CChange is the window's median compliance against the baseline's, in
+	// % (negative: falling); cstat when both have plateaus, else fit_c of
+	// reliable breaths. NaN without enough breaths.
+	CChange float64
 	DPSlope float64 // driving pressure slope, cmH2O per hour
 	Rise    Attribution
 }
@@ -97,6 +101,7 @@ func (t *Trend) Stat(name string) (Stat, bool) {
 type part struct {
 	t             float64
 	peak, res, el float64 // measured: peak, peak − plateau, plateau − PEEP
+	cstat, fitC   float64 // compliance measured and fitted (reliable breaths only)
 	fitRes, fitEl float64 // fitted: peak − PEEP − VT/C, VT/C
 }
 
@@ -123,6 +128,8 @@ type Window struct {
 type baseline struct {
 	at                       float64 // stream time of the computation; NaN before
 	peak, res, el, fres, fel float64
+	cstat, fitC              float64
+	nCstat, nFit             int
 	nPeak, nRes, nFres       int
 }
 
@@ -294,11 +301,13 @@ func (w *Window) median(from, to float64, get func(p part) float64) (float64, in
 	return s.Median, s.N
 }
 
-func partPeak(p part) float64 { return p.peak }
-func partRes(p part) float64  { return p.res }
-func partEl(p part) float64   { return p.el }
-func partFres(p part) float64 { return p.fitRes }
-func partFel(p part) float64  { return p.fitEl }
+func partPeak(p part) float64  { return p.peak }
+func partRes(p part) float64   { return p.res }
+func partEl(p part) float64    { return p.el }
+func partFres(p part) float64  { return p.fitRes }
+func partFel(p part) float64   { return p.fitEl }
+func partCstat(p part) float64 { return p.cstat }
+func partFitC(p part) float64  { return p.fitC }
 
 // current is the median of one part over the window's breaths.
 func (w *Window) current(idx []int, get func(p part) float64) (float64, int) {
@@ -314,15 +323,17 @@ func (w *Window) current(idx []int, get func(p part) float64) (float64, int) {
 
 var (
 	iPeak, iPlat, iPEEP = fieldIndex("ppeak"), fieldIndex("pplat"), fieldIndex("peep")
-	iVTi, iFitC         = fieldIndex("vti"), fieldIndex("fit_c")
+	iVTi, iFitC, iCstat = fieldIndex("vti"), fieldIndex("fit_c"), fieldIndex("cstat")
 )
 
 // partOf derives a breath's parts from its stored values.
 func partOf(v []float64, f Flags) part {
-	p := part{t: v[0], peak: v[iPeak], res: v[iPeak] - v[iPlat], el: v[iPlat] - v[iPEEP], fitRes: nan, fitEl: nan}
+	p := part{t: v[0], peak: v[iPeak], res: v[iPeak] - v[iPlat], el: v[iPlat] - v[iPEEP], fitRes: nan, fitEl: nan,
+		cstat: v[iCstat], fitC: nan}
 	if f&(FlagFitUnreliable|FlagActiveEffort) == 0 && v[iFitC] > 0 {
 		p.fitEl = v[iVTi] / v[iFitC]
 		p.fitRes = v[iPeak] - v[iPEEP] - p.fitEl
+		p.fitC = v[iFitC]
 	}
 	return p
 }
@@ -340,6 +351,14 @@ func (w *Window) attribute(now float64, idx []int) Attribution {
 		b.el, _ = w.median(baseFrom, winFrom, partEl)
 		b.fres, b.nFres = w.median(baseFrom, winFrom, partFres)
 		b.fel, _ = w.median(baseFrom, winFrom, partFel)
+		b.cstat, b.nCstat = w.median(baseFrom, winFrom, partCstat)
+		b.fitC, b.nFit = w.median(baseFrom, winFrom, partFitC)
+	}
+	w.trend.CChange = nan
+	if c, n := w.current(idx, partCstat); n >= 3 && b.nCstat >= 3 {
+		w.trend.CChange = (c - b.cstat) / b.cstat * 100
+	} else if c, n := w.current(idx, partFitC); n >= 3 && b.nFit >= 3 {
+		w.trend.CChange = (c - b.fitC) / b.fitC * 100
 	}
 	curPeak, nc := w.current(idx, partPeak)
 	a := Attribution{Cause: RiseNone, PeakRise: nan, ResistiveRise: nan, ElasticRise: nan, BaselineBreaths: b.nPeak}

@@ -5,11 +5,14 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"math"
 	"sort"
+	"strconv"
 	"strings"
 	"sync"
 	"time"
 
+	"breathd/alerts"
 	"breathd/device"
 	"breathd/mechanics"
 
@@ -23,7 +26,15 @@ type Sink interface {
 	Breath(device string, b *mechanics.Breath, w *mechanics.Window)
 }
 
-// Sinks passes each breath to every sink in turn.
+// EventSink is implemented by sinks that also take rule events. Calls for
+// one device are serialised but may come from different goroutines (the
+// loop, the technical ticker, an acknowledgement). active is the set of
+// rules raised after the event.
+type EventSink interface {
+	Event(ev *alerts.Event, active []alerts.Active)
+}
+
+// Sinks passes each breath and event to every sink in turn.
 type Sinks []Sink
 
 // Breath calls every sink.
@@ -33,14 +44,29 @@ func (s Sinks) Breath(device string, b *mechanics.Breath, w *mechanics.Window) {
 	}
 }
 
+// Event calls every sink that takes events.
+func (s Sinks) Event(ev *alerts.Event, active []alerts.Active) {
+	for _, k := range s {
+		if es, ok := k.(EventSink); ok {
+			es.Event(ev, active)
+		}
+	}
+}
+
 // Config is one device's loop settings.
 type Config struct {
 	Device    string                 // device id, for logs and reports
 	Format    Format                 // how to decode the stream
 	Mechanics mechanics.Config       // breath detection and metrics
 	Window    mechanics.WindowConfig // the rolling window
-	Sink      Sink                   // receives breaths; may be nil
-	Every     time.Duration          // how often Report is called while running; default 5 s
+	Rules     []alerts.Rule          // the rules to evaluate (merged with the defaults by the caller); nil: none
+	Sink      Sink                   // receives breaths (and events, if it is an EventSink); may be nil
+	Control   *Control               // if set, lets other goroutines acknowledge events
+	// Live says the source delivers in real time (a port, stdin, a paced
+	// replay): technical rules are then also evaluated on a wall-clock
+	// ticker, so that "no samples" is seen while nothing arrives.
+	Live  bool
+	Every time.Duration // how often Report is called while running; default 5 s
 	// Report, if set, is called every Every from a separate goroutine and
 	// once more, with Final set, when Run ends.
 	Report func(Status)
@@ -53,19 +79,62 @@ type Status struct {
 	Counts    Counts
 	Breaths   int64           // breaths completed
 	Drops     mechanics.Drops // breaths in progress dropped, by cause
+	Events    int64           // rule transitions
 	Health    device.Health   // the source's, when it reports one
 	HasHealth bool
 	Elapsed   time.Duration // since Run started
 	Final     bool
 }
 
-// Run reads src until it ends or ctx is done, decoding it with cfg.Format.
-// It closes src when ctx is done so that a blocked read returns, and
-// always closes it before returning. The end of src and a cancelled ctx
-// are clean ends (nil error); a stream that cannot be decoded, or a read
-// error, is returned.
+// Control acknowledges a device's events from outside its loop.
+type Control struct {
+	mu sync.Mutex
+	l  *loop
+}
+
+// ErrNotRunning is returned by Control.Ack before Run starts or after it
+// ends.
+var ErrNotRunning = errors.New("device not running")
+
+// Ack acknowledges the raised rule whose raising event has this id.
+func (c *Control) Ack(id string) error {
+	c.mu.Lock()
+	l := c.l
+	c.mu.Unlock()
+	if l == nil {
+		return ErrNotRunning
+	}
+	l.emu.Lock()
+	defer l.emu.Unlock()
+	evs, err := l.eng.Ack(id, l.lastT, time.Now())
+	l.deliver(evs)
+	return err
+}
+
+// Active returns the rules raised now.
+func (c *Control) Active() []alerts.Active {
+	c.mu.Lock()
+	l := c.l
+	c.mu.Unlock()
+	if l == nil {
+		return nil
+	}
+	l.emu.Lock()
+	defer l.emu.Unlock()
+	return l.eng.Active()
+}
+
+// tickEvery is how often technical rules are evaluated, in stream time and
+// on the wall-clock ticker.
+const tickEvery = 1.0 // s
+
+// Run reads src until it ends or ctx is done, decoding it with cfg.Format,
+// finding breaths and evaluating rules. It closes src when ctx is done so
+// that a blocked read returns, and always closes it before returning. The
+// end of src and a cancelled ctx are clean ends (nil error); a stream that
+// cannot be decoded, or a read error, is returned.
 func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
-	l := &loop{cfg: cfg, src: src, start: time.Now()}
+	l := &loop{cfg: cfg, src: src, start: time.Now(), lastBreathT: math.NaN(), lastT: math.NaN()}
 	dec, err := NewDecoder(snapReader{l}, cfg.Format)
 	if err == nil {
 		// sized for up to 1000 Hz whatever the stream turns out to be
@@ -74,13 +143,29 @@ func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
 	if err == nil {
 		l.win, err = mechanics.NewWindow(cfg.Window)
 	}
+	if err == nil {
+		l.eng, err = alerts.NewEngine(cfg.Device, strconv.FormatInt(l.start.Unix(), 36), cfg.Rules)
+	}
 	if err != nil {
 		src.Close()
 		return Status{Device: cfg.Device}, err
 	}
 	l.dec = dec
+	if es, ok := cfg.Sink.(EventSink); ok {
+		l.events = es
+	}
 	if p, ok := src.(device.Paced); ok {
 		l.pacer = p.Pacer()
+	}
+	if cfg.Control != nil {
+		cfg.Control.mu.Lock()
+		cfg.Control.l = l
+		cfg.Control.mu.Unlock()
+		defer func() {
+			cfg.Control.mu.Lock()
+			cfg.Control.l = nil
+			cfg.Control.mu.Unlock()
+		}()
 	}
 	stop := context.AfterFunc(ctx, func() { src.Close() })
 	defer stop()
@@ -92,6 +177,9 @@ func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
 			every = 5 * time.Second
 		}
 		wg.Go(func() { l.reportEvery(every, done) })
+	}
+	if cfg.Live {
+		wg.Go(func() { l.wallTicks(done) })
 	}
 	err = l.run(ctx)
 	close(done)
@@ -106,18 +194,35 @@ func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
 }
 
 type loop struct {
-	cfg   Config
-	src   io.ReadCloser
-	dec   *Decoder
-	seg   *mechanics.Segmenter
-	win   *mechanics.Window
-	pacer *device.Pacer
-	start time.Time
+	cfg    Config
+	src    io.ReadCloser
+	dec    *Decoder
+	seg    *mechanics.Segmenter
+	win    *mechanics.Window
+	pacer  *device.Pacer
+	events EventSink
+	start  time.Time
 
-	mu    sync.Mutex
+	// owned by the loop goroutine
+	nextTick    float64
+	prevT       float64
+	lastBreathT float64
+	ticks       int64
+	badRing     [60]int64 // bad-line totals at the last 60 ticks
+	sampleRing  [11]int64 // sample totals at the last 11 ticks
+	tickTRing   [11]float64
+
+	// emu guards the engine and lastT for the ticker and acknowledgements
+	emu   sync.Mutex
+	eng   *alerts.Engine
+	lastT float64 // stream time of the latest sample, s
+	nEv   int64
+
+	mu    sync.Mutex // guards the snapshot
 	snap  Counts
 	snapB int64
 	snapD mechanics.Drops
+	snapE int64
 }
 
 func (l *loop) run(ctx context.Context) error {
@@ -148,10 +253,130 @@ func (l *loop) run(ctx context.Context) error {
 			}
 		}
 		if b := l.seg.Add(s.T, s.Paw, s.Flow, s.Gap); b != nil {
-			l.win.Add(b)
-			if l.cfg.Sink != nil {
-				l.cfg.Sink.Breath(l.cfg.Device, b, l.win)
+			l.breath(b)
+		}
+		if s.T >= l.nextTick || s.Gap {
+			l.tick(&s)
+		}
+		l.prevT = s.T
+	}
+}
+
+func (l *loop) breath(b *mechanics.Breath) {
+	l.win.Add(b)
+	l.lastBreathT = b.TEnd
+	if l.cfg.Sink != nil {
+		l.cfg.Sink.Breath(l.cfg.Device, b, l.win)
+	}
+	l.emu.Lock()
+	l.lastT = b.TEnd
+	l.deliver(l.eng.Breath(b, l.win, l.wall(b.TEnd)))
+	l.emu.Unlock()
+}
+
+// wall is the wall-clock time of stream time t: from the recording's clock
+// directives when it has them, else now.
+func (l *loop) wall(t float64) time.Time {
+	if w, ok := l.dec.Wall(t); ok {
+		return w
+	}
+	return time.Now()
+}
+
+// deliver passes events to the sink; emu is held.
+func (l *loop) deliver(evs []alerts.Event) {
+	if len(evs) == 0 {
+		return
+	}
+	l.nEv += int64(len(evs))
+	if l.events == nil {
+		return
+	}
+	active := l.eng.Active()
+	for i := range evs {
+		l.events.Event(&evs[i], active)
+	}
+}
+
+// tick evaluates the technical rules in stream time.
+func (l *loop) tick(s *Sample) {
+	c := &l.dec.counts
+	l.ticks++
+	l.nextTick = s.T + tickEvery
+	tech := alerts.Unknown()
+	if l.ticks > 1 {
+		tech.SinceSample = s.T - l.prevT
+	}
+	if !math.IsNaN(l.lastBreathT) {
+		tech.SinceBreath = s.T - l.lastBreathT
+	} else if c.Samples > 1 {
+		tech.SinceBreath = s.T - c.FirstT
+	}
+	tech.CircuitOpen = 0
+	if l.seg.Open() {
+		tech.CircuitOpen = 1
+	}
+	i := l.ticks % int64(len(l.badRing))
+	old := l.badRing[i]
+	l.badRing[i] = c.BadTotal()
+	if l.ticks > int64(len(l.badRing)) {
+		tech.BadPerMin = float64(c.BadTotal() - old)
+	} else {
+		tech.BadPerMin = float64(c.BadTotal()) / math.Max(1, (s.T-c.FirstT)/60)
+	}
+	k := l.ticks % int64(len(l.sampleRing))
+	oldN, oldT := l.sampleRing[k], l.tickTRing[k]
+	l.sampleRing[k], l.tickTRing[k] = c.Samples, s.T
+	if want := l.cfg.Format.RateHz; want > 0 && l.ticks > int64(len(l.sampleRing)) && s.T > oldT {
+		seen := float64(c.Samples-oldN) / (s.T - oldT)
+		tech.RateError = math.Abs(seen-want) / want * 100
+	}
+	if h, ok := l.src.(device.HealthReporter); ok && !h.Health().Connected {
+		tech.PortLost = 1
+	} else {
+		tech.PortLost = 0
+	}
+	l.emu.Lock()
+	l.lastT = s.T
+	l.deliver(l.eng.Tick(tech, s.T, l.wall(s.T)))
+	l.emu.Unlock()
+}
+
+// wallTicks evaluates "no samples" and "port lost" once a second of wall
+// time while no samples arrive, in stream time extrapolated from the last
+// sample.
+func (l *loop) wallTicks(done <-chan struct{}) {
+	t := time.NewTicker(time.Duration(tickEvery * float64(time.Second)))
+	defer t.Stop()
+	var lastN int64 = -1
+	changed := time.Now()
+	for {
+		select {
+		case <-done:
+			return
+		case now := <-t.C:
+			st := l.status()
+			if st.Counts.Samples != lastN {
+				lastN, changed = st.Counts.Samples, now
+				continue // samples flow: the stream-time ticks see to it
 			}
+			idle := now.Sub(changed).Seconds()
+			if idle < 2*tickEvery {
+				continue
+			}
+			tech := alerts.Unknown()
+			tech.SinceSample = idle
+			tech.PortLost = 0
+			if st.HasHealth && !st.Health.Connected {
+				tech.PortLost = 1
+			}
+			l.emu.Lock()
+			at := l.lastT
+			if math.IsNaN(at) {
+				at = 0
+			}
+			l.deliver(l.eng.Tick(tech, at+idle, now))
+			l.emu.Unlock()
 		}
 	}
 }
@@ -175,15 +400,18 @@ func (r snapReader) Read(p []byte) (int, error) {
 }
 
 func (l *loop) snapshot() {
+	l.emu.Lock()
+	ev := l.nEv
+	l.emu.Unlock()
 	l.mu.Lock()
 	l.snap = l.dec.counts
-	l.snapB, l.snapD = l.seg.Breaths(), l.seg.Drops()
+	l.snapB, l.snapD, l.snapE = l.seg.Breaths(), l.seg.Drops(), ev
 	l.mu.Unlock()
 }
 
 func (l *loop) status() Status {
 	l.mu.Lock()
-	st := Status{Device: l.cfg.Device, Counts: l.snap, Breaths: l.snapB, Drops: l.snapD, Elapsed: time.Since(l.start)}
+	st := Status{Device: l.cfg.Device, Counts: l.snap, Breaths: l.snapB, Drops: l.snapD, Events: l.snapE, Elapsed: time.Since(l.start)}
 	l.mu.Unlock()
 	if h, ok := l.src.(device.HealthReporter); ok {
 		st.Health, st.HasHealth = h.Health(), true
@@ -218,6 +446,9 @@ func (st Status) String() string {
 	fmt.Fprintf(&b, "  breaths %d", st.Breaths)
 	if d := st.Drops; d.Gap+d.Open+d.TooLong > 0 {
 		fmt.Fprintf(&b, " (dropped: gap %d, open circuit %d, too long %d)", d.Gap, d.Open, d.TooLong)
+	}
+	if st.Events > 0 {
+		fmt.Fprintf(&b, "  events %d", st.Events)
 	}
 	fmt.Fprintf(&b, "  bad %d", c.BadTotal())
 	if c.BadTotal() > 0 {

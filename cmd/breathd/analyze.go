@@ -1,6 +1,7 @@
 package main
 
 import (
+	"bufio"
 	"context"
 	"fmt"
 	"io"
@@ -11,6 +12,7 @@ import (
 	"strings"
 	"time"
 
+	"breathd/alerts"
 	"breathd/device"
 	"breathd/mechanics"
 	"breathd/stream"
@@ -26,6 +28,7 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	var pf patientFlags
 	pf.register(fs)
 	csvPath := fs.String("csv", "", "write one row per breath as CSV to this file, or - for stdout")
+	eventsPath := fs.String("events", "", "write the rule events as JSON lines to this file, or - for stdout")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -69,13 +72,40 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	if csv != nil {
 		sinks = append(sinks, csv)
 	}
+	var evFile *os.File
+	var evw *bufio.Writer
+	switch *eventsPath {
+	case "":
+	case "-":
+		evw = bufio.NewWriter(stdout)
+	default:
+		if evFile, err = os.Create(*eventsPath); err != nil {
+			src.Close()
+			return fmt.Errorf("--events: %w", err)
+		}
+		evw = bufio.NewWriter(evFile)
+	}
+	if evw != nil {
+		sinks = append(sinks, &eventLines{w: evw})
+	}
 	stopBar := showProgress(file, stderr)
 	start := time.Now()
-	st, runErr := stream.Run(ctx, src, stream.Config{Device: idFromPath(path), Format: f, Mechanics: mcfg, Sink: sinks})
+	st, runErr := stream.Run(ctx, src, stream.Config{Device: idFromPath(path), Format: f, Mechanics: mcfg,
+		Rules: alerts.Defaults(), Sink: sinks})
 	stopBar()
 	if csv != nil {
 		if err := csv.Flush(); err != nil && runErr == nil {
 			runErr = fmt.Errorf("--csv: %w", err)
+		}
+	}
+	if evw != nil {
+		if err := evw.Flush(); err != nil && runErr == nil {
+			runErr = fmt.Errorf("--events: %w", err)
+		}
+	}
+	if evFile != nil {
+		if err := evFile.Close(); err != nil && runErr == nil {
+			runErr = fmt.Errorf("--events: %w", err)
 		}
 	}
 	if csvFile != nil {
@@ -206,7 +236,8 @@ func (s *summary) print(w io.Writer, st stream.Status, took time.Duration) {
 		fmt.Fprintf(w, " (%s)", badCausesOf(&c))
 	}
 	d := st.Drops
-	fmt.Fprintf(w, "; gaps %d; breaths dropped: gap %d, open circuit %d, too long %d\n", c.Gaps, d.Gap, d.Open, d.TooLong)
+	fmt.Fprintf(w, "; gaps %d; breaths dropped: gap %d, open circuit %d, too long %d; rule events %d\n",
+		c.Gaps, d.Gap, d.Open, d.TooLong, st.Events)
 	if s.n == 0 {
 		return
 	}

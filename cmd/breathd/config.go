@@ -11,6 +11,7 @@ import (
 	"strings"
 	"time"
 
+	"breathd/alerts"
 	"breathd/device"
 	"breathd/mechanics"
 	"breathd/stream"
@@ -41,8 +42,11 @@ type deviceConfig struct {
 	Stdin   bool                 `yaml:"stdin"`
 	Sim     *simSource           `yaml:"simulate"`
 	Patient mechanics.Patient    `yaml:"patient"`
-	Format  formatConfig         `yaml:"format"`
-	Record  *recordConfig        `yaml:"record"`
+	Rules   []alerts.Rule        `yaml:"rules"` // overrides of the default rules by id, or new rules
+
+	rules  []alerts.Rule // the defaults merged with Rules
+	Format formatConfig  `yaml:"format"`
+	Record *recordConfig `yaml:"record"`
 }
 
 type fileSource struct {
@@ -363,6 +367,11 @@ func (d *deviceConfig) validate(i int) error {
 			return field(err, "devices", i, "patient")
 		}
 	}
+	rules, err := alerts.Merge(alerts.Defaults(), d.Rules)
+	if err != nil {
+		return field(err, "devices", i, "rules")
+	}
+	d.rules = rules
 	if err := d.Format.format().Validate(); err != nil {
 		return field(err, "devices", i, "format")
 	}

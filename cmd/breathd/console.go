@@ -7,7 +7,9 @@ import (
 	"strings"
 	"sync"
 
+	"breathd/alerts"
 	"breathd/mechanics"
+	"breathd/stream"
 )
 
 // console prints one row per breath and, every trendEvery breaths, the
@@ -67,4 +69,37 @@ func trendLine(dev string, tr *mechanics.Trend) string {
 		fmt.Fprintf(&b, "  peak pressure up %.1f cmH2O: %s (resistive %+.1f, elastic %+.1f, by %s)", r.PeakRise, r.Cause, r.ResistiveRise, r.ElasticRise, r.Method)
 	}
 	return b.String()
+}
+
+// Event prints one rule transition.
+func (c *console) Event(ev *alerts.Event, _ []alerts.Active) {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	fmt.Fprintln(c.w, eventLine(ev))
+}
+
+func eventLine(ev *alerts.Event) string {
+	cond := ""
+	switch {
+	case ev.Transition == alerts.Acknowledged:
+	case !math.IsNaN(ev.Low):
+		cond = fmt.Sprintf(": %s %.2f (band %g–%g)", ev.Field, ev.Value, ev.Low, ev.High)
+	default:
+		cond = fmt.Sprintf(": %s %.2f (threshold %g)", ev.Field, ev.Value, ev.Threshold)
+	}
+	return fmt.Sprintf("%-12s event %-12s %s [%s]%s at t %.1f s  id %s", ev.Device, ev.Transition, ev.Rule, ev.Level, cond, ev.T, ev.ID)
+}
+
+// eventLines writes events as JSON lines (analyze --events).
+type eventLines struct {
+	w   io.Writer
+	err error
+}
+
+func (e *eventLines) Breath(string, *mechanics.Breath, *mechanics.Window) {}
+
+func (e *eventLines) Event(ev *alerts.Event, _ []alerts.Active) {
+	if e.err == nil {
+		_, e.err = e.w.Write(append(stream.EventJSON(ev), '\n'))
+	}
 }

@@ -9,6 +9,7 @@ import (
 	"sync"
 	"time"
 
+	"breathd/alerts"
 	"breathd/device"
 	"breathd/mechanics"
 	"breathd/stream"
@@ -22,6 +23,8 @@ type deviceRun struct {
 	src       io.ReadCloser
 	format    stream.Format
 	mechanics mechanics.Config
+	rules     []alerts.Rule
+	live      bool
 }
 
 func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -84,7 +87,8 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		}
 		src = rec
 	}
-	return runDevices(ctx, []deviceRun{{id: dev, src: src, format: f, mechanics: mcfg}}, *every, stdout, log)
+	return runDevices(ctx, []deviceRun{{id: dev, src: src, format: f, mechanics: mcfg, rules: alerts.Defaults(),
+		live: sp > 0 || path == "-"}}, *every, stdout, log)
 }
 
 func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -134,7 +138,8 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 			return fmt.Errorf("device %s: %w", d.ID, err)
 		}
 		runs = append(runs, deviceRun{id: d.ID, src: src, format: d.Format.format(),
-			mechanics: mechanics.Config{Sex: d.Patient.Sex, HeightCm: d.Patient.HeightCm}})
+			mechanics: mechanics.Config{Sex: d.Patient.Sex, HeightCm: d.Patient.HeightCm}, rules: d.rules,
+			live: d.File == nil || d.File.Speed > 0})
 	}
 	return runDevices(ctx, runs, cfg.ReportEvery, stdout, log)
 }
@@ -194,7 +199,7 @@ func runDevices(ctx context.Context, runs []deviceRun, every time.Duration, stdo
 		wg.Go(func() {
 			dlog := log.With().Str("device", r.id).Logger()
 			_, err := stream.Run(ctx, r.src, stream.Config{Device: r.id, Format: r.format, Mechanics: r.mechanics,
-				Every: every, Report: report, Log: dlog, Sink: con})
+				Rules: r.rules, Live: r.live, Every: every, Report: report, Log: dlog, Sink: con})
 			if err != nil {
 				dlog.Error().Err(err).Msg("device stopped")
 				errs[i] = err

@@ -1,0 +1,200 @@
+// Package alerts evaluates threshold rules on breaths, on the rolling
+// window and on a device's technical state, with a delay before a rule is
+// raised and hysteresis before it clears, and turns every transition into
+// an event. It is pure: no I/O, no logging, no clock of its own — the
+// caller passes stream and wall-clock time.
+//
+// breathd is advisory: these events are not a certified alarm system.
+package alerts
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"regexp"
+	"strings"
+
+	"breathd/mechanics"
+)
+
+// Levels, in increasing urgency.
+const (
+	LevelNotice  = "notice"
+	LevelWarning = "warning"
+	LevelUrgent  = "urgent"
+)
+
+// Comparisons.
+const (
+	Above   = "above"   // condition: value > threshold; clears below threshold − hysteresis
+	Below   = "below"   // condition: value < threshold; clears above threshold + hysteresis
+	Outside = "outside" // condition: value < low or > high; clears inside [low + h, high − h]
+)
+
+// Rule is one threshold rule. Field names a per-breath field of
+// mechanics.Fields, a derived one (peak_plateau_gap), a rolling one
+// (median.<field>, iqr.<field>, slope.compliance, slope.dp,
+// compliance_change, rise.peak, rise.resistive, rise.elastic) or a
+// technical one (since_sample, since_breath, circuit_open, bad_per_min,
+// rate_error, port_lost).
+type Rule struct {
+	ID         string  `yaml:"id"`
+	Field      string  `yaml:"field"`
+	Compare    string  `yaml:"compare"`   // above, below or outside
+	Threshold  float64 `yaml:"threshold"` // above, below
+	Low        float64 `yaml:"low"`       // outside
+	High       float64 `yaml:"high"`      // outside
+	Hysteresis float64 `yaml:"hysteresis"`
+	// RaiseAfter is how many consecutive evaluations (breaths, or ticks for
+	// technical fields) the condition must hold; RaiseAfterSec, if set, is
+	// how long it must hold as well, s.
+	RaiseAfter    int     `yaml:"raise_after"`
+	RaiseAfterSec float64 `yaml:"raise_after_s"`
+	// ClearAfter is how many consecutive evaluations must be back past the
+	// hysteresis margin before it clears.
+	ClearAfter int    `yaml:"clear_after"`
+	Level      string `yaml:"level"`    // notice, warning or urgent
+	Latching   bool   `yaml:"latching"` // stays raised until acknowledged
+	Off        bool   `yaml:"off"`      // switched off
+	Source     string `yaml:"source"`   // where the default comes from
+}
+
+var validRuleID = regexp.MustCompile(`^[a-z0-9_]{1,48}$`)
+
+// technical fields are evaluated on ticks, not breaths.
+var technical = map[string]bool{"since_sample": true, "since_breath": true, "circuit_open": true,
+	"bad_per_min": true, "rate_error": true, "port_lost": true}
+
+// Validate reports the first unusable setting.
+func (r *Rule) Validate() error {
+	if !validRuleID.MatchString(r.ID) {
+		return fmt.Errorf("rule id %q: use 1–48 of a–z 0–9 _", r.ID)
+	}
+	if _, err := fieldKind(r.Field); err != nil {
+		return fmt.Errorf("rule %s: %w", r.ID, err)
+	}
+	switch r.Compare {
+	case Above, Below:
+		if math.IsNaN(r.Threshold) {
+			return fmt.Errorf("rule %s: threshold is not a number", r.ID)
+		}
+	case Outside:
+		if !(r.Low < r.High) {
+			return fmt.Errorf("rule %s: low %g must be below high %g", r.ID, r.Low, r.High)
+		}
+		if 2*r.Hysteresis >= r.High-r.Low {
+			return fmt.Errorf("rule %s: hysteresis %g leaves no band to clear in", r.ID, r.Hysteresis)
+		}
+	default:
+		return fmt.Errorf("rule %s: compare %q: want above, below or outside", r.ID, r.Compare)
+	}
+	switch r.Level {
+	case LevelNotice, LevelWarning, LevelUrgent:
+	default:
+		return fmt.Errorf("rule %s: level %q: want notice, warning or urgent", r.ID, r.Level)
+	}
+	if r.RaiseAfter < 1 || r.ClearAfter < 1 || r.Hysteresis < 0 || r.RaiseAfterSec < 0 {
+		return fmt.Errorf("rule %s: raise_after and clear_after must be at least 1, hysteresis and raise_after_s not negative", r.ID)
+	}
+	return nil
+}
+
+// field kinds
+const (
+	kindBreath = iota
+	kindDerived
+	kindRolling
+	kindTech
+)
+
+func fieldKind(name string) (int, error) {
+	if technical[name] {
+		return kindTech, nil
+	}
+	if name == "peak_plateau_gap" {
+		return kindDerived, nil
+	}
+	for _, f := range mechanics.Fields {
+		if f == name {
+			return kindBreath, nil
+		}
+	}
+	switch name {
+	case "slope.compliance", "slope.dp", "compliance_change", "rise.peak", "rise.resistive", "rise.elastic":
+		return kindRolling, nil
+	}
+	if stat, f, ok := strings.Cut(name, "."); ok && (stat == "median" || stat == "iqr") {
+		for _, g := range mechanics.Fields {
+			if g == f {
+				return kindRolling, nil
+			}
+		}
+	}
+	return 0, fmt.Errorf("unknown field %q", name)
+}
+
+// Merge applies overrides to the defaults by id: a known id changes the
+// fields the override sets (non-zero), a new id adds a rule. Off switches
+// a rule off.
+func Merge(defaults []Rule, overrides []Rule) ([]Rule, error) {
+	out := append([]Rule(nil), defaults...)
+	for _, o := range overrides {
+		i := -1
+		for k := range out {
+			if out[k].ID == o.ID {
+				i = k
+			}
+		}
+		if i < 0 {
+			out = append(out, o)
+			continue
+		}
+		r := &out[i]
+		if o.Field != "" {
+			r.Field = o.Field
+		}
+		if o.Compare != "" {
+			r.Compare = o.Compare
+		}
+		if o.Threshold != 0 {
+			r.Threshold = o.Threshold
+		}
+		if o.Low != 0 || o.High != 0 {
+			r.Low, r.High = o.Low, o.High
+		}
+		if o.Hysteresis != 0 {
+			r.Hysteresis = o.Hysteresis
+		}
+		if o.RaiseAfter != 0 {
+			r.RaiseAfter = o.RaiseAfter
+		}
+		if o.RaiseAfterSec != 0 {
+			r.RaiseAfterSec = o.RaiseAfterSec
+		}
+		if o.ClearAfter != 0 {
+			r.ClearAfter = o.ClearAfter
+		}
+		if o.Level != "" {
+			r.Level = o.Level
+		}
+		r.Latching = r.Latching || o.Latching
+		r.Off = o.Off
+	}
+	seen := map[string]bool{}
+	for i := range out {
+		if seen[out[i].ID] {
+			return nil, fmt.Errorf("rule id %q twice", out[i].ID)
+		}
+		seen[out[i].ID] = true
+		if out[i].Off {
+			continue
+		}
+		if err := out[i].Validate(); err != nil {
+			return nil, err
+		}
+	}
+	return out, nil
+}
+
+// ErrUnknownEvent is returned by Ack for an id no raised rule carries.
+var ErrUnknownEvent = errors.New("no raised rule has that event id")
