@@ -6,6 +6,7 @@ import (
 	"time"
 
 	"breathd/alerts"
+	"breathd/mechanics"
 )
 
 // PayloadVersion is the "v" of every JSON payload.
@@ -51,4 +52,128 @@ func EventJSON(ev *alerts.Event) []byte {
 		T: num(ev.T), At: ev.At.UTC().Format(time.RFC3339Nano)}
 	b, _ := json.Marshal(p)
 	return b
+}
+
+// BreathJSON encodes a breath record: "v", device, "at", and the fields of
+// mechanics.Fields under their names (null when not computed), seq and
+// flags.
+func BreathJSON(device string, b *mechanics.Breath, at time.Time) []byte {
+	var vals [32]float64
+	v := b.Values(vals[:0])
+	m := make(map[string]any, len(v)+5)
+	m["v"], m["device"], m["seq"], m["at"] = PayloadVersion, device, b.Seq, at.UTC().Format(time.RFC3339Nano)
+	for i, f := range mechanics.Fields {
+		m[f] = num(v[i])
+	}
+	flags := b.Flags.Words()
+	if flags == nil {
+		flags = []string{}
+	}
+	m["flags"] = flags
+	out, _ := json.Marshal(m)
+	return out
+}
+
+type statPayload struct {
+	Median num `json:"median"`
+	Q1     num `json:"q1"`
+	Q3     num `json:"q3"`
+	IQR    num `json:"iqr"`
+	N      int `json:"n"`
+}
+
+type risePayload struct {
+	Cause           string `json:"cause"`
+	Method          string `json:"method"`
+	Peak            num    `json:"peak"`
+	Resistive       num    `json:"resistive"`
+	Elastic         num    `json:"elastic"`
+	BaselineBreaths int    `json:"baseline_breaths"`
+}
+
+// TrendJSON encodes the rolling window summary after breath seq.
+func TrendJSON(device string, seq int64, tr *mechanics.Trend, at time.Time) []byte {
+	fields := make(map[string]statPayload, len(mechanics.Fields))
+	for i, f := range mechanics.Fields {
+		s := tr.Stats[i]
+		fields[f] = statPayload{num(s.Median), num(s.Q1), num(s.Q3), num(s.IQR()), s.N}
+	}
+	r := tr.Rise
+	out, _ := json.Marshal(struct {
+		V                int                    `json:"v"`
+		Device           string                 `json:"device"`
+		Seq              int64                  `json:"seq"`
+		At               string                 `json:"at"`
+		T                num                    `json:"t"`
+		Breaths          int                    `json:"breaths"`
+		Span             num                    `json:"span"`
+		Fields           map[string]statPayload `json:"fields"`
+		ComplianceSlope  num                    `json:"compliance_slope"`
+		DPSlope          num                    `json:"dp_slope"`
+		ComplianceChange num                    `json:"compliance_change"`
+		Rise             risePayload            `json:"rise"`
+	}{PayloadVersion, device, seq, at.UTC().Format(time.RFC3339Nano), num(tr.At), tr.N, num(tr.Span), fields,
+		num(tr.CSlope), num(tr.DPSlope), num(tr.CChange),
+		risePayload{r.Cause, r.Method, num(r.PeakRise), num(r.ResistiveRise), num(r.ElasticRise), r.BaselineBreaths}})
+	return out
+}
+
+type activePayload struct {
+	Rule     string `json:"rule"`
+	Level    string `json:"level"`
+	Field    string `json:"field"`
+	EventID  string `json:"event_id"`
+	Since    num    `json:"since_t"`
+	SinceAt  string `json:"since_at"`
+	Value    num    `json:"value"`
+	Acked    bool   `json:"acknowledged"`
+	Latching bool   `json:"latching"`
+}
+
+// ActiveJSON encodes the set of rules raised now.
+func ActiveJSON(device string, seq int64, active []alerts.Active, at time.Time) []byte {
+	list := make([]activePayload, 0, len(active))
+	for _, a := range active {
+		list = append(list, activePayload{a.Rule, a.Level, a.Field, a.EventID, num(a.Since),
+			a.SinceAt.UTC().Format(time.RFC3339Nano), num(a.Value), a.Acked, a.Latching})
+	}
+	out, _ := json.Marshal(struct {
+		V      int             `json:"v"`
+		Device string          `json:"device"`
+		Seq    int64           `json:"seq"`
+		At     string          `json:"at"`
+		Active []activePayload `json:"active"`
+	}{PayloadVersion, device, seq, at.UTC().Format(time.RFC3339Nano), list})
+	return out
+}
+
+// StatusJSON encodes the device's status: online or offline, its counters
+// and the advisory notice.
+func StatusJSON(device string, seq int64, state, reason, version string, st Status, pc Counters, at time.Time) []byte {
+	bad := make(map[string]int64, NumCauses)
+	for i, n := range st.Counts.Bad {
+		bad[Cause(i).String()] = n
+	}
+	counters := map[string]any{
+		"samples": st.Counts.Samples, "bad_lines": bad, "gaps": st.Counts.Gaps, "breaths": st.Breaths,
+		"breaths_dropped": map[string]int64{"gap": st.Drops.Gap, "open_circuit": st.Drops.Open, "too_long": st.Drops.TooLong},
+		"events":          st.Events, "queue_depth": pc.QueueDepth, "records_dropped": pc.Dropped, "messages_sent": pc.Sent,
+		"reconnects": pc.Reconnects, "acks": pc.Acks, "acks_refused": pc.AcksRefused, "events_not_on_disk": pc.Unqueued,
+		"rate_hz": num(st.Counts.RateHz()),
+	}
+	if st.HasHealth {
+		counters["port_connected"], counters["port_outages"] = st.Health.Connected, st.Health.Outages
+	}
+	out, _ := json.Marshal(struct {
+		V        int            `json:"v"`
+		Device   string         `json:"device"`
+		Seq      int64          `json:"seq"`
+		State    string         `json:"state"`
+		Reason   string         `json:"reason,omitempty"`
+		At       string         `json:"at"`
+		Version  string         `json:"version,omitempty"`
+		Advisory string         `json:"advisory"`
+		Counters map[string]any `json:"counters"`
+	}{PayloadVersion, device, seq, state, reason, at.UTC().Format(time.RFC3339Nano), version, Advisory, counters})
+	return out
 }

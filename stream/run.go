@@ -111,6 +111,17 @@ func (c *Control) Ack(id string) error {
 	return err
 }
 
+// Status returns the device's counters now (zero before Run starts).
+func (c *Control) Status() Status {
+	c.mu.Lock()
+	l := c.l
+	c.mu.Unlock()
+	if l == nil {
+		return Status{}
+	}
+	return l.status()
+}
+
 // Active returns the rules raised now.
 func (c *Control) Active() []alerts.Active {
 	c.mu.Lock()

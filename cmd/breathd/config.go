@@ -24,6 +24,9 @@ import (
 type config struct {
 	LogLevel    string         `yaml:"log_level"`
 	ReportEvery time.Duration  `yaml:"report_every"`
+	StateDir    string         `yaml:"state_dir"` // durable event queues; default: in memory only
+	MQTT        mqttConfig     `yaml:"mqtt"`
+	Embedded    embeddedConfig `yaml:"embedded_broker"`
 	Devices     []deviceConfig `yaml:"devices"`
 
 	yamlFile `yaml:"-"`

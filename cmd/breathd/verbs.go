@@ -38,6 +38,8 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	every := fs.Duration("report-every", 5*time.Second, "how often to print the counters")
 	var pf patientFlags
 	pf.register(fs)
+	var mf mqttFlags
+	mf.register(fs)
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -87,8 +89,17 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		}
 		src = rec
 	}
+	var mc mqttConfig
+	var ec embeddedConfig
+	var stateDir string
+	mf.apply(&mc, &ec, &stateDir)
+	sess, err := startMQTT(mc, ec, stateDir, log)
+	if err != nil {
+		src.Close()
+		return err
+	}
 	return runDevices(ctx, []deviceRun{{id: dev, src: src, format: f, mechanics: mcfg, rules: alerts.Defaults(),
-		live: sp > 0 || path == "-"}}, *every, stdout, log)
+		live: sp > 0 || path == "-"}}, *every, stdout, log, sess)
 }
 
 func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -96,6 +107,8 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 	path := fs.String("config", "", "configuration file (YAML; see configs/breathd.example.yaml)")
 	level := fs.String("log-level", "", "log level, overriding the file's log_level")
 	every := fs.Duration("report-every", 0, "how often to print the counters, overriding report_every (default 5s)")
+	var mf mqttFlags
+	mf.register(fs)
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -141,7 +154,13 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 			mechanics: mechanics.Config{Sex: d.Patient.Sex, HeightCm: d.Patient.HeightCm}, rules: d.rules,
 			live: d.File == nil || d.File.Speed > 0})
 	}
-	return runDevices(ctx, runs, cfg.ReportEvery, stdout, log)
+	mf.apply(&cfg.MQTT, &cfg.Embedded, &cfg.StateDir)
+	sess, err := startMQTT(cfg.MQTT, cfg.Embedded, cfg.StateDir, log)
+	if err != nil {
+		closeAll()
+		return err
+	}
+	return runDevices(ctx, runs, cfg.ReportEvery, stdout, log, sess)
 }
 
 // openSource opens a device's byte source, wrapped in a recorder when the
@@ -184,9 +203,11 @@ func openSource(d *deviceConfig, log zerolog.Logger) (io.ReadCloser, error) {
 }
 
 // runDevices runs every device in its own goroutine until all end or ctx
-// is done, printing their counters. A device that fails is logged and
-// does not stop the others.
-func runDevices(ctx context.Context, runs []deviceRun, every time.Duration, stdout io.Writer, log zerolog.Logger) error {
+// is done, printing their breaths, events and counters, and publishing
+// them when sess is set. A device that fails is logged and does not stop
+// the others.
+func runDevices(ctx context.Context, runs []deviceRun, every time.Duration, stdout io.Writer, log zerolog.Logger, sess *mqttSession) error {
+	defer sess.close()
 	con := newConsole(stdout)
 	report := func(st stream.Status) {
 		con.mu.Lock()
@@ -198,8 +219,23 @@ func runDevices(ctx context.Context, runs []deviceRun, every time.Duration, stdo
 	for i, r := range runs {
 		wg.Go(func() {
 			dlog := log.With().Str("device", r.id).Logger()
+			ctl := &stream.Control{}
+			sinks := stream.Sinks{con}
+			var pub *stream.Publisher
+			if sess != nil {
+				var err error
+				if pub, err = sess.publisher(r.id, ctl); err != nil {
+					r.src.Close()
+					errs[i] = fmt.Errorf("device %s: %w", r.id, err)
+					return
+				}
+				sinks = append(sinks, pub)
+			}
 			_, err := stream.Run(ctx, r.src, stream.Config{Device: r.id, Format: r.format, Mechanics: r.mechanics,
-				Rules: r.rules, Live: r.live, Every: every, Report: report, Log: dlog, Sink: con})
+				Rules: r.rules, Live: r.live, Every: every, Report: report, Log: dlog, Sink: sinks, Control: ctl})
+			if pub != nil {
+				closePublisher(pub, dlog)
+			}
 			if err != nil {
 				dlog.Error().Err(err).Msg("device stopped")
 				errs[i] = err

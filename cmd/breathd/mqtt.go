@@ -1,0 +1,213 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"os"
+	"path/filepath"
+	"strings"
+	"sync"
+	"time"
+
+	"breathd/stream"
+
+	paho "github.com/eclipse/paho.mqtt.golang"
+	"github.com/rs/zerolog"
+)
+
+// mqttConfig is the publishing part of the configuration (file and flags).
+type mqttConfig struct {
+	Broker       string `yaml:"broker"`    // mqtt://host:port or mqtts://…; empty: the embedded broker
+	Root         string `yaml:"root"`      // topic root; default breathd
+	ClientID     string `yaml:"client_id"` // prefix of the per-device client ids
+	Username     string `yaml:"username"`
+	PasswordFile string `yaml:"password_file"` // the password, alone in a file
+	PasswordEnv  string `yaml:"password_env"`  // or the name of an environment variable holding it
+	CAFile       string `yaml:"ca_file"`
+	CertFile     string `yaml:"cert_file"`
+	KeyFile      string `yaml:"key_file"`
+	BreathQoS    int    `yaml:"breath_qos"` // 0 (default) or 1
+	Off          bool   `yaml:"off"`        // do not publish at all
+
+	StatusEvery time.Duration `yaml:"status_every"` // default 10s
+}
+
+// embeddedConfig is the embedded broker's part.
+type embeddedConfig struct {
+	Listen       string `yaml:"listen"`        // default 127.0.0.1:1883
+	PasswordFile string `yaml:"password_file"` // user:password lines; required off loopback
+}
+
+// mqttFlags registers the publishing flags, which override the file.
+type mqttFlags struct {
+	broker, root, listen, brokerPasswords, username, passwordFile, passwordEnv string
+	caFile, certFile, keyFile, stateDir                                        string
+	noMQTT                                                                     bool
+}
+
+func (m *mqttFlags) register(fs *flag.FlagSet) {
+	fs.StringVar(&m.broker, "broker", "", "MQTT broker, mqtt://host:port or mqtts://host:port (default: start the embedded one)")
+	fs.StringVar(&m.listen, "listen", "", "where the embedded broker listens (default 127.0.0.1:1883)")
+	fs.StringVar(&m.brokerPasswords, "broker-passwords", "", "user:password file for the embedded broker (required off loopback)")
+	fs.StringVar(&m.root, "root", "", "topic root (default breathd)")
+	fs.StringVar(&m.username, "username", "", "MQTT username")
+	fs.StringVar(&m.passwordFile, "password-file", "", "file holding the MQTT password")
+	fs.StringVar(&m.passwordEnv, "password-env", "", "environment variable holding the MQTT password")
+	fs.StringVar(&m.caFile, "ca-file", "", "mqtts: CA certificate file (PEM)")
+	fs.StringVar(&m.certFile, "cert-file", "", "mqtts: client certificate (PEM)")
+	fs.StringVar(&m.keyFile, "key-file", "", "mqtts: client key (PEM)")
+	fs.StringVar(&m.stateDir, "state-dir", "", "directory for the durable event queue (default: in memory only)")
+	fs.BoolVar(&m.noMQTT, "no-mqtt", false, "do not publish over MQTT")
+}
+
+// apply lays the flags over the file's settings.
+func (m *mqttFlags) apply(c *mqttConfig, e *embeddedConfig, stateDir *string) {
+	set := func(dst *string, v string) {
+		if v != "" {
+			*dst = v
+		}
+	}
+	set(&c.Broker, m.broker)
+	set(&c.Root, m.root)
+	set(&c.Username, m.username)
+	set(&c.PasswordFile, m.passwordFile)
+	set(&c.PasswordEnv, m.passwordEnv)
+	set(&c.CAFile, m.caFile)
+	set(&c.CertFile, m.certFile)
+	set(&c.KeyFile, m.keyFile)
+	set(&e.Listen, m.listen)
+	set(&e.PasswordFile, m.brokerPasswords)
+	set(stateDir, m.stateDir)
+	c.Off = c.Off || m.noMQTT
+}
+
+// password reads the MQTT password from its file or the environment.
+func (c *mqttConfig) password() (string, error) {
+	switch {
+	case c.PasswordFile != "" && c.PasswordEnv != "":
+		return "", errors.New("give the MQTT password by a file or an environment variable, not both")
+	case c.PasswordFile != "":
+		b, err := os.ReadFile(c.PasswordFile)
+		if err != nil {
+			return "", fmt.Errorf("MQTT password file: %w", err)
+		}
+		return strings.TrimRight(string(b), "\r\n"), nil
+	case c.PasswordEnv != "":
+		v, ok := os.LookupEnv(c.PasswordEnv)
+		if !ok {
+			return "", fmt.Errorf("environment variable %s (the MQTT password) is not set", c.PasswordEnv)
+		}
+		return v, nil
+	}
+	return "", nil
+}
+
+// mqttSession is the broker (embedded or not) and the publishers of one
+// run.
+type mqttSession struct {
+	cfg      mqttConfig
+	password string
+	url      string
+	broker   *stream.Broker
+	stateDir string
+	log      zerolog.Logger
+}
+
+// startMQTT starts the embedded broker when no broker is configured.
+func startMQTT(c mqttConfig, e embeddedConfig, stateDir string, log zerolog.Logger) (*mqttSession, error) {
+	if c.Off {
+		return nil, nil
+	}
+	routePahoLogs(log)
+	pw, err := c.password()
+	if err != nil {
+		return nil, err
+	}
+	if c.BreathQoS < 0 || c.BreathQoS > 1 {
+		return nil, fmt.Errorf("breath_qos %d: want 0 or 1", c.BreathQoS)
+	}
+	s := &mqttSession{cfg: c, password: pw, url: c.Broker, stateDir: stateDir, log: log}
+	if s.url == "" {
+		b, err := stream.StartBroker(stream.BrokerConfig{Listen: e.Listen, PasswordFile: e.PasswordFile}, log)
+		if err != nil {
+			return nil, err
+		}
+		s.broker, s.url = b, b.URL()
+		log.Info().Str("listen", b.Addr()).Msg("embedded MQTT broker started (mosquitto_sub -h " + hostOf(b.Addr()) + " -p " + portOf(b.Addr()) + " -t 'breathd/#' -v)")
+	}
+	return s, nil
+}
+
+func hostOf(a string) string { h, _, _ := strings.Cut(a, ":"); return h }
+func portOf(a string) string {
+	i := strings.LastIndex(a, ":")
+	return a[i+1:]
+}
+
+// publisher makes the publisher of one device.
+func (s *mqttSession) publisher(dev string, ctl *stream.Control) (*stream.Publisher, error) {
+	dir := ""
+	if s.stateDir != "" {
+		dir = filepath.Join(s.stateDir, "queue", dev)
+	}
+	clientID := ""
+	if s.cfg.ClientID != "" {
+		clientID = s.cfg.ClientID + "-" + dev
+	}
+	p, err := stream.NewPublisher(stream.PublishConfig{Broker: s.url, Root: s.cfg.Root, Device: dev, ClientID: clientID,
+		Username: s.cfg.Username, Password: s.password, CAFile: s.cfg.CAFile, CertFile: s.cfg.CertFile, KeyFile: s.cfg.KeyFile,
+		StateDir: dir, BreathQoS: byte(s.cfg.BreathQoS), StatusEvery: s.cfg.StatusEvery, Version: versionString(),
+		Status: ctl.Status, Log: s.log.With().Str("device", dev).Logger()})
+	if err != nil {
+		return nil, err
+	}
+	p.SetAck(ctl.Ack)
+	return p, nil
+}
+
+// close stops the embedded broker.
+func (s *mqttSession) close() {
+	if s != nil && s.broker != nil {
+		s.broker.Close()
+	}
+}
+
+// drainDeadline is how long publishers may take to deliver what is queued
+// when breathd stops.
+const drainDeadline = 5 * time.Second
+
+func closePublisher(p *stream.Publisher, log zerolog.Logger) {
+	ctx, cancel := context.WithTimeout(context.Background(), drainDeadline)
+	defer cancel()
+	if err := p.Close(ctx); err != nil {
+		log.Warn().Err(err).Msg("publisher closed")
+	}
+}
+
+// pahoLog sends paho's log lines to zerolog.
+type pahoLog struct {
+	log   zerolog.Logger
+	level zerolog.Level
+}
+
+func (p pahoLog) Println(v ...any) {
+	p.log.WithLevel(p.level).Msg(strings.TrimSpace(fmt.Sprintln(v...)))
+}
+func (p pahoLog) Printf(format string, v ...any) {
+	p.log.WithLevel(p.level).Msg(strings.TrimSpace(fmt.Sprintf(format, v...)))
+}
+
+var pahoOnce sync.Once
+
+// routePahoLogs points paho's package-level loggers at zerolog, once per
+// process (they are globals).
+func routePahoLogs(log zerolog.Logger) {
+	pahoOnce.Do(func() {
+		l := log.With().Str("component", "mqtt").Logger()
+		paho.ERROR = pahoLog{l, zerolog.ErrorLevel}
+		paho.CRITICAL = pahoLog{l, zerolog.ErrorLevel}
+		paho.WARN = pahoLog{l, zerolog.WarnLevel}
+	})
+}

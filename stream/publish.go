@@ -1,0 +1,509 @@
+package stream
+
+import (
+	"context"
+	"crypto/tls"
+	"crypto/x509"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"net/url"
+	"os"
+	"regexp"
+	"strings"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"breathd/alerts"
+	"breathd/mechanics"
+
+	mqtt "github.com/eclipse/paho.mqtt.golang"
+	"github.com/eclipse/paho.mqtt.golang/packets"
+	"github.com/rs/zerolog"
+)
+
+// PublishConfig configures one device's MQTT publisher.
+type PublishConfig struct {
+	Broker   string // mqtt://host:port or mqtts://host:port
+	Root     string // topic root; default "breathd"
+	Device   string // device id, validated
+	ClientID string // fixed, for a persistent session; default breathd-<host>-<device>
+	Username string
+	Password string // from a file or the environment; never logged
+	CAFile   string // mqtts: CA certificates (PEM); default the system's
+	CertFile string // mqtts: client certificate (PEM), with KeyFile
+	KeyFile  string
+	StateDir string // the device's durable queue; "" keeps it in memory only
+	// BreathQoS is the QoS of breath records (0 or 1; default 0).
+	BreathQoS   byte
+	StatusEvery time.Duration // periodic status; default 10 s
+	Version     string        // breathd's version, in the status payload
+	// Status returns the device's counters for the status payload.
+	Status func() Status
+	Log    zerolog.Logger
+}
+
+var (
+	validDevice = regexp.MustCompile(`^[A-Za-z0-9_.-]{1,64}$`)
+	validRoot   = regexp.MustCompile(`^[A-Za-z0-9_.-]+(/[A-Za-z0-9_.-]+)*$`)
+)
+
+// ValidateTopicParts checks a topic root and a device id so that no
+// payload can reach another device's topics.
+func ValidateTopicParts(root, device string) error {
+	if !validRoot.MatchString(root) || len(root) > 128 {
+		return fmt.Errorf("topic root %q: use segments of A–Z a–z 0–9 _ . - separated by /", root)
+	}
+	if !validDevice.MatchString(device) {
+		return fmt.Errorf("device id %q: use 1–64 of A–Z a–z 0–9 _ . -", device)
+	}
+	return nil
+}
+
+// breathQueue bounds the breath and trend records waiting to be sent.
+const breathQueue = 1024
+
+type record struct {
+	topic   string
+	qos     byte
+	retain  bool
+	payload []byte
+}
+
+// Publisher sends one device's breaths, trends, events, active rules and
+// status to an MQTT broker through paho. Events and active rules are QoS 1
+// through a durable queue (spool); breath records and trends go through a
+// bounded queue of breathQueue and are sent only while connected: when the
+// broker is away or the queue is full they are dropped and counted. It is
+// a Sink and an EventSink.
+type Publisher struct {
+	cfg    PublishConfig
+	client mqtt.Client
+	sp     *spool
+	topics struct{ breath, trend, event, active, status, ack string }
+
+	q0      chan record
+	kick    chan struct{}
+	done    chan struct{}
+	wg      sync.WaitGroup
+	stopped atomic.Bool
+
+	dropped    atomic.Int64 // breath and trend records not sent
+	sent       atomic.Int64 // messages the broker took
+	reconnects atomic.Int64
+	acks       atomic.Int64 // acknowledgements received
+	rejected   atomic.Int64 // ack messages refused
+	statusSeq  atomic.Int64
+	activeSeq  atomic.Int64
+	statusDue  atomic.Bool
+	ackFn      atomic.Pointer[func(id string) error]
+	lastActive atomic.Pointer[[]byte]
+}
+
+// NewPublisher checks the configuration and the state directory and
+// connects in the background. Wrong credentials are an error at once; a
+// broker that cannot be reached yet is retried, with the events queued.
+func NewPublisher(cfg PublishConfig) (*Publisher, error) {
+	if cfg.Root == "" {
+		cfg.Root = "breathd"
+	}
+	if err := ValidateTopicParts(cfg.Root, cfg.Device); err != nil {
+		return nil, err
+	}
+	if cfg.StatusEvery <= 0 {
+		cfg.StatusEvery = 10 * time.Second
+	}
+	if cfg.BreathQoS > 1 {
+		return nil, errors.New("breath QoS: 0 or 1")
+	}
+	if cfg.ClientID == "" {
+		host, _ := os.Hostname()
+		cfg.ClientID = "breathd-" + sanitize(host) + "-" + cfg.Device
+	}
+	brokerURL, tlsCfg, err := brokerAddress(cfg)
+	if err != nil {
+		return nil, err
+	}
+	sp, err := openSpool(cfg.StateDir)
+	if err != nil {
+		return nil, err
+	}
+	p := &Publisher{cfg: cfg, sp: sp, q0: make(chan record, breathQueue), kick: make(chan struct{}, 1), done: make(chan struct{})}
+	base := cfg.Root + "/" + cfg.Device + "/"
+	p.topics.breath, p.topics.trend, p.topics.event = base+"breath", base+"trend", base+"event"
+	p.topics.active, p.topics.status, p.topics.ack = base+"active", base+"status", base+"ack"
+
+	opts := p.options(brokerURL, tlsCfg)
+	client := mqtt.NewClient(opts)
+	tok := client.Connect()
+	if !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
+		err := tok.Error()
+		if isAuthError(err) {
+			sp.close()
+			return nil, fmt.Errorf("broker %s refused the credentials of user %q: check the username and the password file", redact(cfg.Broker), cfg.Username)
+		}
+		client.Disconnect(0)
+		cfg.Log.Warn().Str("broker", redact(cfg.Broker)).Str("cause", errText(err)).
+			Msg("broker not reachable; events are queued and sent when it is")
+		opts.SetConnectRetry(true).SetConnectRetryInterval(2 * time.Second)
+		client = mqtt.NewClient(opts)
+		client.Connect() // completes in the background
+	}
+	p.client = client
+	p.statusDue.Store(true)
+	p.wg.Go(p.sendQueued)
+	p.wg.Go(p.sendRecords)
+	p.wg.Go(p.statusTicks)
+	return p, nil
+}
+
+func errText(err error) string {
+	if err == nil {
+		return "timed out"
+	}
+	return err.Error()
+}
+
+func isAuthError(err error) bool {
+	return errors.Is(err, packets.ErrorRefusedBadUsernameOrPassword) || errors.Is(err, packets.ErrorRefusedNotAuthorised) ||
+		(err != nil && (strings.Contains(err.Error(), "not Authorized") || strings.Contains(err.Error(), "bad user name or password")))
+}
+
+func sanitize(s string) string {
+	b := []byte(s)
+	for i, c := range b {
+		if !(c >= 'a' && c <= 'z' || c >= 'A' && c <= 'Z' || c >= '0' && c <= '9' || c == '-' || c == '_' || c == '.') {
+			b[i] = '_'
+		}
+	}
+	return string(b)
+}
+
+// redact removes any password from a broker URL before it is logged.
+func redact(raw string) string {
+	u, err := url.Parse(raw)
+	if err != nil {
+		return "(unparsable broker URL)"
+	}
+	if u.User != nil {
+		u.User = url.User(u.User.Username())
+	}
+	return u.String()
+}
+
+// brokerAddress turns mqtt:// and mqtts:// into paho's address and TLS
+// settings.
+func brokerAddress(cfg PublishConfig) (string, *tls.Config, error) {
+	u, err := url.Parse(cfg.Broker)
+	if err != nil || u.Host == "" {
+		return "", nil, fmt.Errorf("broker %q: want mqtt://host:port or mqtts://host:port", redact(cfg.Broker))
+	}
+	if u.User != nil {
+		if _, has := u.User.Password(); has {
+			return "", nil, errors.New("broker URL must not carry a password: use a password file or an environment variable")
+		}
+	}
+	port := u.Port()
+	switch u.Scheme {
+	case "mqtt", "tcp":
+		if port == "" {
+			port = "1883"
+		}
+		return "tcp://" + u.Hostname() + ":" + port, nil, nil
+	case "mqtts", "ssl", "tls":
+		if port == "" {
+			port = "8883"
+		}
+	default:
+		return "", nil, fmt.Errorf("broker %q: scheme %q, want mqtt or mqtts", redact(cfg.Broker), u.Scheme)
+	}
+	tc := &tls.Config{MinVersion: tls.VersionTLS12, ServerName: u.Hostname()}
+	if cfg.CAFile != "" {
+		pem, err := os.ReadFile(cfg.CAFile)
+		if err != nil {
+			return "", nil, fmt.Errorf("CA file: %w", err)
+		}
+		pool := x509.NewCertPool()
+		if !pool.AppendCertsFromPEM(pem) {
+			return "", nil, fmt.Errorf("CA file %s has no PEM certificate", cfg.CAFile)
+		}
+		tc.RootCAs = pool
+	}
+	if cfg.CertFile != "" || cfg.KeyFile != "" {
+		cert, err := tls.LoadX509KeyPair(cfg.CertFile, cfg.KeyFile)
+		if err != nil {
+			return "", nil, fmt.Errorf("client certificate: %w", err)
+		}
+		tc.Certificates = []tls.Certificate{cert}
+	}
+	return "ssl://" + u.Hostname() + ":" + port, tc, nil
+}
+
+func (p *Publisher) options(addr string, tc *tls.Config) *mqtt.ClientOptions {
+	cfg := &p.cfg
+	opts := mqtt.NewClientOptions().AddBroker(addr).SetClientID(cfg.ClientID).
+		SetCleanSession(false).SetOrderMatters(false).SetResumeSubs(true).
+		SetAutoReconnect(true).SetMaxReconnectInterval(15*time.Second).
+		SetConnectTimeout(5*time.Second).SetKeepAlive(15*time.Second).SetPingTimeout(5*time.Second).
+		SetWriteTimeout(5*time.Second).SetStore(mqtt.NewOrderedMemoryStore()).
+		SetBinaryWill(p.topics.status, p.statusPayload("offline", "connection lost"), 1, true)
+	if tc != nil {
+		opts.SetTLSConfig(tc)
+	}
+	if cfg.Username != "" {
+		opts.SetUsername(cfg.Username).SetPassword(cfg.Password)
+	}
+	opts.SetOnConnectHandler(func(c mqtt.Client) {
+		cfg.Log.Info().Str("broker", redact(cfg.Broker)).Msg("connected to the MQTT broker")
+		p.statusDue.Store(true)
+		if last := p.lastActive.Load(); last != nil {
+			p.sp.setActive(*last)
+		}
+		c.Subscribe(p.topics.ack, 1, p.onAck)
+		p.nudge()
+	})
+	opts.SetConnectionLostHandler(func(_ mqtt.Client, err error) {
+		cfg.Log.Warn().Str("cause", errText(err)).Msg("lost the MQTT broker; reconnecting")
+	})
+	opts.SetReconnectingHandler(func(mqtt.Client, *mqtt.ClientOptions) { p.reconnects.Add(1) })
+	return opts
+}
+
+func (p *Publisher) nudge() {
+	select {
+	case p.kick <- struct{}{}:
+	default:
+	}
+}
+
+// SetAck sets the function that acknowledges an event id.
+func (p *Publisher) SetAck(fn func(id string) error) { p.ackFn.Store(&fn) }
+
+// ackID is a well-formed event id: device/rule/run-seq.
+var ackID = regexp.MustCompile(`^([A-Za-z0-9_.-]{1,64})/[a-z0-9_]{1,48}/[0-9a-z]{1,16}-[0-9]{1,18}$`)
+
+// ParseAck reads an acknowledgement message: an event id, as plain text
+// or as {"id": "…"}. It accepts only well-formed ids of this device.
+func ParseAck(device string, payload []byte) (string, error) {
+	text := strings.TrimSpace(string(payload))
+	if strings.HasPrefix(text, "{") {
+		var m struct {
+			ID string `json:"id"`
+		}
+		if err := json.Unmarshal([]byte(text), &m); err != nil {
+			return "", fmt.Errorf("ack: not JSON with an id: %w", err)
+		}
+		text = m.ID
+	}
+	sub := ackID.FindStringSubmatch(text)
+	if sub == nil {
+		return "", fmt.Errorf("ack: %q is not an event id (device/rule/run-seq)", truncate(text, 80))
+	}
+	if sub[1] != device {
+		return "", fmt.Errorf("ack: event %q belongs to another device", text)
+	}
+	return text, nil
+}
+
+func truncate(s string, n int) string {
+	if len(s) > n {
+		return s[:n] + "…"
+	}
+	return s
+}
+
+func (p *Publisher) onAck(_ mqtt.Client, m mqtt.Message) {
+	id, err := ParseAck(p.cfg.Device, m.Payload())
+	if err == nil {
+		if fn := p.ackFn.Load(); fn != nil {
+			err = (*fn)(id)
+		} else {
+			err = errors.New("acknowledgements are not taken yet")
+		}
+	}
+	if err != nil {
+		p.rejected.Add(1)
+		p.cfg.Log.Info().Err(err).Msg("acknowledgement refused")
+		return
+	}
+	p.acks.Add(1)
+	p.cfg.Log.Info().Str("event", id).Msg("event acknowledged")
+}
+
+// Breath queues the breath record and the trend. It never blocks.
+func (p *Publisher) Breath(_ string, b *mechanics.Breath, w *mechanics.Window) {
+	if p.stopped.Load() {
+		return
+	}
+	at := time.Now()
+	p.offer(record{topic: p.topics.breath, qos: p.cfg.BreathQoS, payload: BreathJSON(p.cfg.Device, b, at)})
+	p.offer(record{topic: p.topics.trend, retain: true, payload: TrendJSON(p.cfg.Device, b.Seq, w.Trend(), at)})
+}
+
+func (p *Publisher) offer(r record) {
+	select {
+	case p.q0 <- r:
+	default:
+		p.dropped.Add(1)
+	}
+}
+
+// Event queues the event and the new set of active rules durably.
+func (p *Publisher) Event(ev *alerts.Event, active []alerts.Active) {
+	if err := p.sp.push(p.topics.event, EventJSON(ev)); err != nil {
+		p.cfg.Log.Error().Err(err).Str("event", ev.ID).Msg("could not queue the event on disk")
+	}
+	payload := ActiveJSON(p.cfg.Device, p.activeSeq.Add(1), active, time.Now())
+	p.lastActive.Store(&payload)
+	if err := p.sp.setActive(payload); err != nil {
+		p.cfg.Log.Error().Err(err).Msg("could not keep the active rules on disk")
+	}
+	p.nudge()
+}
+
+// sendQueued delivers the durable queue in order, then the active rules,
+// then a due status, one QoS 1 message at a time while connected.
+func (p *Publisher) sendQueued() {
+	t := time.NewTicker(500 * time.Millisecond)
+	defer t.Stop()
+	for {
+		select {
+		case <-p.done:
+			return
+		case <-p.kick:
+		case <-t.C:
+		}
+		for p.client.IsConnectionOpen() {
+			if m, ok := p.sp.head(); ok {
+				if !p.publish1(m.Topic, false, m.Payload) {
+					break
+				}
+				if err := p.sp.ack(m.Seq); err != nil {
+					p.cfg.Log.Error().Err(err).Msg("could not record a delivered event on disk")
+				}
+				continue
+			}
+			if a := p.sp.takeActive(); a != nil {
+				if !p.publish1(p.topics.active, true, a) {
+					break
+				}
+				p.sp.activeDone(a)
+				continue
+			}
+			if p.statusDue.Swap(false) {
+				if !p.publish1(p.topics.status, true, p.statusPayload("online", "")) {
+					p.statusDue.Store(true)
+					break
+				}
+			}
+			break
+		}
+	}
+}
+
+// publish1 sends one QoS 1 message and waits for the broker's
+// acknowledgement (10 s at most); false means "not delivered yet".
+func (p *Publisher) publish1(topic string, retain bool, payload []byte) bool {
+	tok := p.client.Publish(topic, 1, retain, payload)
+	select {
+	case <-tok.Done():
+	case <-time.After(10 * time.Second):
+		return false
+	case <-p.done:
+		return false
+	}
+	if tok.Error() != nil {
+		return false
+	}
+	p.sent.Add(1)
+	return true
+}
+
+// sendRecords sends breath records and trends while connected and drops
+// (counting) what comes while not.
+func (p *Publisher) sendRecords() {
+	for {
+		select {
+		case <-p.done:
+			return
+		case r := <-p.q0:
+			if !p.client.IsConnectionOpen() {
+				p.dropped.Add(1)
+				continue
+			}
+			p.client.Publish(r.topic, r.qos, r.retain, r.payload)
+			p.sent.Add(1)
+		}
+	}
+}
+
+func (p *Publisher) statusTicks() {
+	t := time.NewTicker(p.cfg.StatusEvery)
+	defer t.Stop()
+	for {
+		select {
+		case <-p.done:
+			return
+		case <-t.C:
+			p.statusDue.Store(true)
+			p.nudge()
+		}
+	}
+}
+
+// Close drains the queues until ctx ends, publishes the retained offline
+// status, and disconnects. It is safe to call once.
+func (p *Publisher) Close(ctx context.Context) error {
+	p.stopped.Store(true)
+	for p.sp.depth() > 0 || len(p.q0) > 0 {
+		p.nudge()
+		select {
+		case <-ctx.Done():
+			goto out
+		case <-time.After(20 * time.Millisecond):
+		}
+	}
+out:
+	left := p.sp.depth()
+	close(p.done)
+	p.wg.Wait()
+	var err error
+	if p.client.IsConnectionOpen() {
+		tok := p.client.Publish(p.topics.status, 1, true, p.statusPayload("offline", "stopped"))
+		select {
+		case <-tok.Done():
+			err = tok.Error()
+		case <-ctx.Done():
+			err = errors.New("the offline status was not confirmed before the deadline")
+		}
+	} else {
+		err = errors.New("broker not connected: the offline status is left to the will")
+	}
+	p.client.Disconnect(250)
+	p.sp.close()
+	if left > 0 {
+		err = errors.Join(err, fmt.Errorf("%d queued messages not delivered; they stay in the state directory", left))
+	}
+	return err
+}
+
+// Counters are the publisher's own counts, for the status payload.
+type Counters struct {
+	QueueDepth, Dropped, Sent, Reconnects, Acks, AcksRefused, Unqueued int64
+}
+
+// Counters returns the publisher's counts now.
+func (p *Publisher) Counters() Counters {
+	unq, _ := p.sp.counts()
+	return Counters{QueueDepth: int64(p.sp.depth() + len(p.q0)), Dropped: p.dropped.Load(), Sent: p.sent.Load(),
+		Reconnects: p.reconnects.Load(), Acks: p.acks.Load(), AcksRefused: p.rejected.Load(), Unqueued: unq}
+}
+
+func (p *Publisher) statusPayload(state, reason string) []byte {
+	var st Status
+	if p.cfg.Status != nil {
+		st = p.cfg.Status()
+	}
+	return StatusJSON(p.cfg.Device, p.statusSeq.Add(1), state, reason, p.cfg.Version, st, p.Counters(), time.Now())
+}

@@ -1,0 +1,261 @@
+package stream
+
+import (
+	"context"
+	"encoding/json"
+	"strings"
+	"sync"
+	"testing"
+	"time"
+
+	"breathd/alerts"
+	"breathd/device"
+	"breathd/mechanics"
+
+	mqtt "github.com/eclipse/paho.mqtt.golang"
+	"github.com/rs/zerolog"
+)
+
+// startTestBroker starts the embedded broker on an ephemeral loopback port.
+func startTestBroker(t testing.TB) *Broker {
+	t.Helper()
+	b, err := StartBroker(BrokerConfig{Listen: "127.0.0.1:0"}, zerolog.Nop())
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { b.Close() })
+	return b
+}
+
+// received collects messages by topic.
+type received struct {
+	mu   sync.Mutex
+	msgs map[string][]mqtt.Message
+}
+
+func (r *received) add(_ mqtt.Client, m mqtt.Message) {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	r.msgs[m.Topic()] = append(r.msgs[m.Topic()], m)
+}
+
+func (r *received) count(topic string) int {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	return len(r.msgs[topic])
+}
+
+func (r *received) last(topic string) mqtt.Message {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	l := r.msgs[topic]
+	if len(l) == 0 {
+		return nil
+	}
+	return l[len(l)-1]
+}
+
+// subscribe connects a plain paho client to url and subscribes to filter.
+func subscribe(t testing.TB, url, filter string, clean bool, id string) (*received, mqtt.Client) {
+	t.Helper()
+	r := &received{msgs: map[string][]mqtt.Message{}}
+	opts := mqtt.NewClientOptions().AddBroker(strings.Replace(url, "mqtt://", "tcp://", 1)).SetClientID(id).
+		SetCleanSession(clean).SetOrderMatters(false).SetAutoReconnect(true).SetMaxReconnectInterval(time.Second).
+		SetConnectRetry(true).SetConnectRetryInterval(200 * time.Millisecond).
+		SetOnConnectHandler(func(c mqtt.Client) { c.Subscribe(filter, 1, r.add) })
+	c := mqtt.NewClient(opts)
+	if tok := c.Connect(); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
+		t.Fatalf("subscriber connect: %v", tok.Error())
+	}
+	t.Cleanup(func() { c.Disconnect(100) })
+	return r, c
+}
+
+func waitUntil(t testing.TB, what string, cond func() bool) {
+	t.Helper()
+	deadline := time.Now().Add(10 * time.Second)
+	for !cond() {
+		if time.Now().After(deadline) {
+			t.Fatalf("timed out waiting for %s", what)
+		}
+		time.Sleep(10 * time.Millisecond)
+	}
+}
+
+// TestPublishToEmbeddedBroker: a simulated device through the whole loop
+// and the publisher, seen by an MQTT subscriber: breath records, retained
+// trend, events, retained active rules, retained status with the advisory,
+// and an acknowledgement over the ack topic.
+func TestPublishToEmbeddedBroker(t *testing.T) {
+	b := startTestBroker(t)
+	sub, subc := subscribe(t, b.URL(), "breathd/#", true, "test-sub")
+	ctl := &Control{}
+	pub, err := NewPublisher(PublishConfig{Broker: b.URL(), Device: "bed9", StateDir: t.TempDir(),
+		StatusEvery: 200 * time.Millisecond, Status: ctl.Status, Log: zerolog.Nop()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pub.SetAck(ctl.Ack)
+	// a latching driving-pressure rule on a stiff lung, so that there is something to acknowledge
+	rules, _ := alerts.Merge(alerts.Defaults(), []alerts.Rule{{ID: "driving_pressure_high", Latching: true}})
+	sc := mechanics.Scenario{Seed: 3, RateHz: 100, Duration: 3 * time.Minute,
+		Settings: mechanics.Settings{Mode: mechanics.ModeVC, R: 10, C: 25, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3}}
+	sc.Defaults()
+	src := device.NewSim(sc, device.SimFormat{Header: true}, 0, nil)
+	st, err := Run(context.Background(), src, Config{Device: "bed9", Rules: rules, Sink: Sinks{pub}, Control: ctl})
+	if err != nil {
+		t.Fatal(err)
+	}
+	waitUntil(t, "breaths", func() bool { return sub.count("breathd/bed9/breath") == int(st.Breaths) })
+	waitUntil(t, "the event", func() bool { return sub.count("breathd/bed9/event") >= 1 })
+	waitUntil(t, "active", func() bool { return sub.last("breathd/bed9/active") != nil })
+	waitUntil(t, "status", func() bool { return sub.last("breathd/bed9/status") != nil })
+
+	var breath map[string]any
+	json.Unmarshal(sub.last("breathd/bed9/breath").Payload(), &breath)
+	if breath["v"] != 1.0 || breath["pplat"] == nil || breath["seq"] != float64(st.Breaths) || breath["at"] == nil {
+		t.Errorf("breath payload %v", breath)
+	}
+	var ev map[string]any
+	json.Unmarshal(sub.msgs["breathd/bed9/event"][0].Payload(), &ev)
+	if ev["rule"] != "driving_pressure_high" || ev["transition"] != "raised" || ev["latching"] != true {
+		t.Errorf("event %v", ev)
+	}
+	if m := sub.last("breathd/bed9/event"); m.Qos() != 1 || m.Retained() {
+		t.Errorf("event QoS %d retained %v", m.Qos(), m.Retained())
+	}
+	var status map[string]any
+	json.Unmarshal(sub.last("breathd/bed9/status").Payload(), &status)
+	if status["state"] != "online" || !strings.Contains(status["advisory"].(string), "not a medical device") {
+		t.Errorf("status %v", status)
+	}
+
+	// a new subscriber sees the retained trend, active rules and status at once
+	late, _ := subscribe(t, b.URL(), "breathd/bed9/+", true, "late-sub")
+	waitUntil(t, "retained messages", func() bool {
+		return late.last("breathd/bed9/trend") != nil && late.last("breathd/bed9/active") != nil && late.last("breathd/bed9/status") != nil
+	})
+	for _, topic := range []string{"trend", "active", "status"} {
+		if !late.last("breathd/bed9/" + topic).Retained() {
+			t.Errorf("%s not retained", topic)
+		}
+	}
+	if late.count("breathd/bed9/breath") != 0 {
+		t.Error("breath records are retained")
+	}
+
+	// the ack topic takes only well-formed ids of this device
+	id := ev["id"].(string)
+	for _, bad := range []string{"nonsense", "bed8/driving_pressure_high/x-1", `{"id": 3}`} {
+		subc.Publish("breathd/bed9/ack", 1, false, bad).Wait()
+	}
+	waitUntil(t, "refused acks", func() bool { return pub.Counters().AcksRefused == 3 })
+	// the loop has ended, so the device no longer takes acknowledgements…
+	subc.Publish("breathd/bed9/ack", 1, false, id).Wait()
+	waitUntil(t, "ack after the end", func() bool { return pub.Counters().AcksRefused == 4 })
+
+	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+	defer cancel()
+	if err := pub.Close(ctx); err != nil {
+		t.Fatal(err)
+	}
+	waitUntil(t, "offline status", func() bool {
+		var s map[string]any
+		json.Unmarshal(sub.last("breathd/bed9/status").Payload(), &s)
+		return s["state"] == "offline"
+	})
+}
+
+// TestAckAcknowledgesLatchingRule: an ack message on the device's ack topic
+// acknowledges its raised latching rule while the device runs.
+func TestAckAcknowledgesLatchingRule(t *testing.T) {
+	b := startTestBroker(t)
+	sub, subc := subscribe(t, b.URL(), "breathd/#", true, "ack-sub")
+	ctl := &Control{}
+	pub, err := NewPublisher(PublishConfig{Broker: b.URL(), Device: "bed4", Status: ctl.Status, Log: zerolog.Nop()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pub.SetAck(ctl.Ack)
+	rules, _ := alerts.Merge(alerts.Defaults(), []alerts.Rule{{ID: "driving_pressure_high", Latching: true}})
+	sc := mechanics.Scenario{Seed: 3, RateHz: 100, Duration: time.Hour,
+		Settings: mechanics.Settings{Mode: mechanics.ModeVC, R: 10, C: 25, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3}}
+	sc.Defaults()
+	src := device.NewSim(sc, device.SimFormat{Header: true}, 20, nil) // 20× real time
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan struct{})
+	go func() {
+		Run(ctx, src, Config{Device: "bed4", Rules: rules, Sink: Sinks{pub}, Control: ctl})
+		close(done)
+	}()
+	waitUntil(t, "the raised event", func() bool { return sub.count("breathd/bed4/event") >= 1 })
+	var ev map[string]any
+	json.Unmarshal(sub.msgs["breathd/bed4/event"][0].Payload(), &ev)
+	subc.Publish("breathd/bed4/ack", 1, false, `{"id":"`+ev["id"].(string)+`"}`).Wait()
+	waitUntil(t, "the acknowledged event", func() bool { return sub.count("breathd/bed4/event") >= 2 })
+	json.Unmarshal(sub.msgs["breathd/bed4/event"][1].Payload(), &ev)
+	if ev["transition"] != "acknowledged" || pub.Counters().Acks != 1 {
+		t.Errorf("second event %v", ev)
+	}
+	waitUntil(t, "active shows the acknowledgement", func() bool {
+		return strings.Contains(string(sub.last("breathd/bed4/active").Payload()), `"acknowledged":true`)
+	})
+	cancel()
+	<-done
+	pub.Close(context.Background())
+}
+
+func TestParseAck(t *testing.T) {
+	good := []string{"bed1/plateau_high/tpdy44-12", ` {"id":"bed1/plateau_high/tpdy44-12"} `}
+	for _, g := range good {
+		if id, err := ParseAck("bed1", []byte(g)); err != nil || id != "bed1/plateau_high/tpdy44-12" {
+			t.Errorf("%q: %q %v", g, id, err)
+		}
+	}
+	bad := []string{"", "bed2/plateau_high/tpdy44-12", "bed1/plateau_high/../x-1", "bed1/#/x-1", "bed1/plateau_high/x-",
+		strings.Repeat("a", 300), `{"id":"bed2/x/y-1"}`, `{`}
+	for _, b := range bad {
+		if _, err := ParseAck("bed1", []byte(b)); err == nil {
+			t.Errorf("%q accepted", b)
+		}
+	}
+}
+
+func FuzzParseAck(f *testing.F) {
+	f.Add("bed1/plateau_high/tpdy44-12")
+	f.Add(`{"id":"bed1/x/y-1"}`)
+	f.Fuzz(func(t *testing.T, s string) {
+		id, err := ParseAck("bed1", []byte(s))
+		if err == nil && !strings.HasPrefix(id, "bed1/") {
+			t.Fatalf("accepted %q for another device", id)
+		}
+	})
+}
+
+// TestBrokerRefusesOpenNonLoopback: no open broker beyond loopback.
+func TestBrokerRefusesOpenNonLoopback(t *testing.T) {
+	for _, addr := range []string{"0.0.0.0:0", "[::]:0", ":0"} {
+		_, err := StartBroker(BrokerConfig{Listen: addr}, zerolog.Nop())
+		if err == nil || !strings.Contains(err.Error(), "refusing to start an open MQTT broker") {
+			t.Errorf("%s: %v", addr, err)
+		}
+	}
+	b := startTestBroker(t)
+	_, err := StartBroker(BrokerConfig{Listen: b.Addr()}, zerolog.Nop())
+	if err == nil || !strings.Contains(err.Error(), "use that one with --broker mqtt://"+b.Addr()) {
+		t.Errorf("busy port: %v", err)
+	}
+}
+
+func TestValidateTopicParts(t *testing.T) {
+	for _, c := range [][2]string{{"breathd", "bed1"}, {"ward3/breathd", "bed-1.a_b"}} {
+		if err := ValidateTopicParts(c[0], c[1]); err != nil {
+			t.Errorf("%v: %v", c, err)
+		}
+	}
+	for _, c := range [][2]string{{"breathd", "bed/1"}, {"breathd", "+"}, {"breathd", "#"}, {"bre#", "x"}, {"a//b", "x"}, {"/a", "x"}, {"breathd", ""}} {
+		if err := ValidateTopicParts(c[0], c[1]); err == nil {
+			t.Errorf("%v accepted", c)
+		}
+	}
+}
