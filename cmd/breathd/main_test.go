@@ -30,7 +30,7 @@ var root string
 func breathd(args ...string) *exec.Cmd {
 	cmd := exec.Command(os.Args[0], args...)
 	cmd.Env = append(os.Environ(), "BREATHD_AS_MAIN=1")
-	cmd.Dir = "../.."
+	cmd.Dir = root
 	return cmd
 }
 
@@ -44,7 +44,7 @@ func runCLI(t *testing.T, args ...string) (code int, stdout, stderr string) {
 }
 
 func TestReplayCountsBadLinesExactly(t *testing.T) {
-	code, out, errs := runCLI(t, "replay", "--speed", "max", "testdata/bad-lines.txt")
+	code, out, errs := runCLI(t, "replay", "--no-mqtt", "--speed", "max", "testdata/bad-lines.txt")
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, errs)
 	}
@@ -87,8 +87,8 @@ func TestUserErrors(t *testing.T) {
 		{"config bad value", []string{"check", badValue}, 1, badValue + `:5: devices[0].format.gap_limit: "5" is not a duration`},
 		{"config empty", []string{"check", empty}, 1, "the file is empty"},
 		{"config missing", []string{"check", "/nonexistent.yaml"}, 1, "does not exist"},
-		{"absent port", []string{"run", "--config", absent}, 1, "serial port /dev/breathd-no-such-port does not exist: check the cable"},
-		{"not a recording", []string{"replay", "--speed", "max", "testdata"}, 1, "is a directory"},
+		{"absent port", []string{"run", "--no-mqtt", "--config", absent}, 1, "serial port /dev/breathd-no-such-port does not exist: check the cable"},
+		{"not a recording", []string{"replay", "--no-mqtt", "--speed", "max", "testdata"}, 1, "is a directory"},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
@@ -136,7 +136,7 @@ func TestRecordingReplaysWithoutFlags(t *testing.T) {
 	}
 	os.WriteFile(src, []byte(b.String()), 0o600)
 	rec := filepath.Join(dir, "rec")
-	code, first, errs := runCLI(t, "replay", "--speed", "max", "--record", rec, "--columns", "paw,flow", "--rate-hz", "50",
+	code, first, errs := runCLI(t, "replay", "--no-mqtt", "--speed", "max", "--record", rec, "--columns", "paw,flow", "--rate-hz", "50",
 		"--unit", "paw=mbar", "--unit", "flow=L/s", "--flow-sign", "-1", src)
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, errs)
@@ -145,7 +145,7 @@ func TestRecordingReplaysWithoutFlags(t *testing.T) {
 	if len(files) != 1 {
 		t.Fatalf("recordings %v", files)
 	}
-	code, second, errs := runCLI(t, "replay", "--speed", "max", "--id", "odd", files[0])
+	code, second, errs := runCLI(t, "replay", "--no-mqtt", "--speed", "max", "--id", "odd", files[0])
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, errs)
 	}
@@ -171,7 +171,7 @@ func TestRunReadsPtyAndStopsOnSIGTERM(t *testing.T) {
 	slave.Close()
 	cfg := filepath.Join(t.TempDir(), "pty.yaml")
 	os.WriteFile(cfg, []byte("report_every: 100ms\ndevices:\n  - id: bed7\n    serial:\n      path: "+name+"\n"), 0o600)
-	cmd := breathd("run", "--config", cfg)
+	cmd := breathd("run", "--listen", "127.0.0.1:0", "--config", cfg)
 	stdout, _ := cmd.StdoutPipe()
 	var stderr bytes.Buffer
 	cmd.Stderr = &stderr

@@ -206,8 +206,10 @@ var pahoOnce sync.Once
 func routePahoLogs(log zerolog.Logger) {
 	pahoOnce.Do(func() {
 		l := log.With().Str("component", "mqtt").Logger()
-		paho.ERROR = pahoLog{l, zerolog.ErrorLevel}
+		// paho reports every failed reconnection as an error: during an
+		// outage that is expected, and breathd says so itself
+		paho.ERROR = pahoLog{l, zerolog.DebugLevel}
 		paho.CRITICAL = pahoLog{l, zerolog.ErrorLevel}
-		paho.WARN = pahoLog{l, zerolog.WarnLevel}
+		paho.WARN = pahoLog{l, zerolog.DebugLevel}
 	})
 }

@@ -27,7 +27,7 @@ func TestScenarioFilesSimulateCleanly(t *testing.T) {
 			if code != 0 {
 				t.Fatalf("simulate: exit %d: %s", code, errs)
 			}
-			code, stdout, errs := runCLI(t, "replay", "--speed", "max", out)
+			code, stdout, errs := runCLI(t, "replay", "--no-mqtt", "--speed", "max", out)
 			if code != 0 || !strings.Contains(stdout, "bad 0  gaps 0") {
 				t.Fatalf("replay: exit %d: %s%s", code, stdout, errs)
 			}
@@ -54,7 +54,7 @@ func TestSimulateFormatsReadBack(t *testing.T) {
 		if code, _, errs := runCLI(t, args...); code != 0 {
 			t.Fatalf("%v: %s", args, errs)
 		}
-		args = append(append([]string{"replay", "--speed", "max"}, tc.replay...), out)
+		args = append(append([]string{"replay", "--no-mqtt", "--speed", "max"}, tc.replay...), out)
 		code, stdout, errs := runCLI(t, args...)
 		if code != 0 || !strings.Contains(stdout, "bad 0  gaps 0") || strings.Contains(stdout, "samples 0") {
 			t.Errorf("%v: exit %d: %s%s", args, code, stdout, errs)
@@ -105,7 +105,7 @@ func TestSimulatePtyReadByRun(t *testing.T) {
 	}
 	cfg := filepath.Join(t.TempDir(), "run.yaml")
 	os.WriteFile(cfg, []byte("report_every: 200ms\ndevices:\n  - id: bed3\n    serial:\n      path: "+link+"\n"), 0o600)
-	run := breathd("run", "--config", cfg)
+	run := breathd("run", "--listen", "127.0.0.1:0", "--config", cfg)
 	out, _ := run.StdoutPipe()
 	var stderr bytes.Buffer
 	run.Stderr = &stderr
