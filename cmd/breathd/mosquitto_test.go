@@ -114,7 +114,9 @@ func (m *mosquitto) stop() {
 	}
 }
 
-func (m *mosquitto) url(scheme string) string { return fmt.Sprintf("%s://127.0.0.1:%d", scheme, m.port) }
+func (m *mosquitto) url(scheme string) string {
+	return fmt.Sprintf("%s://127.0.0.1:%d", scheme, m.port)
+}
 
 // testTLS is a CA and a server certificate for 127.0.0.1, made here.
 type testTLS struct {
