@@ -33,6 +33,7 @@ Usage:
   breathd replay [flags] FILE      run on a recorded stream (FILE or - for stdin)
   breathd analyze [flags] FILE     per-breath mechanics of a recording, as fast as possible (--csv PATH|-)
   breathd simulate [flags]         write a simulated patient's stream to a file, stdout or a pseudo-terminal
+  breathd watch [flags]            show live values, events and status from the broker
   breathd check FILE               validate a configuration file and show what it would run
   breathd ports                    list serial ports with their USB details
   breathd version                  print the version
@@ -83,6 +84,8 @@ func dispatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		return cmdAnalyze(ctx, rest, stdout, stderr)
 	case "simulate":
 		return cmdSimulate(ctx, rest, stdout, stderr)
+	case "watch":
+		return cmdWatch(ctx, rest, stdout, stderr)
 	case "check":
 		return cmdCheck(rest, stdout, stderr)
 	case "ports":

@@ -451,3 +451,31 @@ func TestWillAndSIGTERM(t *testing.T) {
 		return len(st) > 0 && st[0]["state"] == "offline"
 	})
 }
+
+// TestReplayPublishesAndWatchShows: the README's pair — replay publishing
+// to the embedded broker, watch in another process showing it.
+func TestReplayPublishesAndWatchShows(t *testing.T) {
+	port := freePort(t)
+	listen := fmt.Sprintf("127.0.0.1:%d", port)
+	rep := breathd("replay", "--speed", "50", "--listen", listen, "testdata/demo.txt.gz")
+	if err := rep.Start(); err != nil {
+		t.Fatal(err)
+	}
+	defer func() { rep.Process.Signal(syscall.SIGTERM); rep.Wait() }()
+	time.Sleep(300 * time.Millisecond)
+	w := breathd("watch", "--broker", "mqtt://"+listen)
+	var out bytes.Buffer
+	w.Stdout, w.Stderr = &out, &out
+	if err := w.Start(); err != nil {
+		t.Fatal(err)
+	}
+	time.Sleep(3 * time.Second)
+	w.Process.Signal(syscall.SIGTERM)
+	if err := w.Wait(); err != nil {
+		t.Errorf("watch after SIGTERM: %v", err)
+	}
+	text := out.String()
+	if !strings.Contains(text, "demo status online") || !strings.Contains(text, "demo breath ") {
+		t.Errorf("watch printed:\n%s", tail(out.Bytes()))
+	}
+}

@@ -1,0 +1,219 @@
+package main
+
+import (
+	"context"
+	"crypto/tls"
+	"crypto/x509"
+	"encoding/json"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"slices"
+	"strings"
+	"sync"
+	"time"
+
+	"github.com/mattn/go-isatty"
+
+	paho "github.com/eclipse/paho.mqtt.golang"
+)
+
+// deviceView is what watch knows of one device.
+type deviceView struct {
+	breath map[string]any
+	trend  map[string]any
+	active []any
+	status map[string]any
+	seen   time.Time
+}
+
+func cmdWatch(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("watch", "watch [flags]", stderr)
+	broker := fs.String("broker", "mqtt://"+defaultListenAddr, "MQTT broker to watch")
+	root := fs.String("root", "breathd", "topic root")
+	only := fs.String("device", "", "show only this device")
+	user := fs.String("username", "", "MQTT username")
+	pwFile := fs.String("password-file", "", "file holding the MQTT password")
+	pwEnv := fs.String("password-env", "", "environment variable holding the MQTT password")
+	caFile := fs.String("ca-file", "", "mqtts: CA certificate file (PEM)")
+	plain := fs.Bool("plain", false, "print plain lines even on a terminal")
+	if err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	mc := mqttConfig{PasswordFile: *pwFile, PasswordEnv: *pwEnv}
+	pw, err := mc.password()
+	if err != nil {
+		return err
+	}
+	addr := strings.Replace(strings.Replace(*broker, "mqtts://", "ssl://", 1), "mqtt://", "tcp://", 1)
+	opts := paho.NewClientOptions().AddBroker(addr).SetClientID(fmt.Sprintf("breathd-watch-%d", os.Getpid())).
+		SetCleanSession(true).SetOrderMatters(false).SetAutoReconnect(true).SetMaxReconnectInterval(5 * time.Second).
+		SetConnectTimeout(5 * time.Second)
+	if *user != "" {
+		opts.SetUsername(*user).SetPassword(pw)
+	}
+	if strings.HasPrefix(*broker, "mqtts://") {
+		tc := &tls.Config{MinVersion: tls.VersionTLS12}
+		if *caFile != "" {
+			pem, err := os.ReadFile(*caFile)
+			if err != nil {
+				return fmt.Errorf("--ca-file: %w", err)
+			}
+			tc.RootCAs = x509.NewCertPool()
+			tc.RootCAs.AppendCertsFromPEM(pem)
+		}
+		opts.SetTLSConfig(tc)
+	}
+	var mu sync.Mutex
+	devices := map[string]*deviceView{}
+	tty := !*plain
+	if f, ok := stdout.(*os.File); !ok || !isatty.IsTerminal(f.Fd()) {
+		tty = false
+	}
+	handle := func(_ paho.Client, m paho.Message) {
+		parts := strings.Split(strings.TrimPrefix(m.Topic(), *root+"/"), "/")
+		if len(parts) != 2 || (*only != "" && parts[0] != *only) {
+			return
+		}
+		var p map[string]any
+		if json.Unmarshal(m.Payload(), &p) != nil {
+			return
+		}
+		mu.Lock()
+		defer mu.Unlock()
+		d := devices[parts[0]]
+		if d == nil {
+			d = &deviceView{}
+			devices[parts[0]] = d
+		}
+		d.seen = time.Now()
+		switch parts[1] {
+		case "breath":
+			d.breath = p
+		case "trend":
+			d.trend = p
+		case "active":
+			d.active, _ = p["active"].([]any)
+		case "status":
+			d.status = p
+		}
+		if !tty {
+			if line := watchLine(parts[0], parts[1], p); line != "" {
+				fmt.Fprintln(stdout, line)
+			}
+		}
+	}
+	opts.SetOnConnectHandler(func(c paho.Client) { c.Subscribe(*root+"/+/+", 0, handle) })
+	client := paho.NewClient(opts)
+	if tok := client.Connect(); !tok.WaitTimeout(6*time.Second) || tok.Error() != nil {
+		return fmt.Errorf("cannot reach the broker at %s (%v): is breathd running (it starts one on %s), or give --broker",
+			redactURL(*broker), tokErr(tok.Error()), defaultListenAddr)
+	}
+	defer client.Disconnect(100)
+	if !tty {
+		<-ctx.Done()
+		return nil
+	}
+	tick := time.NewTicker(time.Second)
+	defer tick.Stop()
+	for {
+		mu.Lock()
+		screen := renderWatch(devices)
+		mu.Unlock()
+		fmt.Fprint(stdout, "\x1b[H\x1b[2J"+screen)
+		select {
+		case <-ctx.Done():
+			return nil
+		case <-tick.C:
+		}
+	}
+}
+
+const defaultListenAddr = "127.0.0.1:1883"
+
+func tokErr(err error) any {
+	if err == nil {
+		return "timed out"
+	}
+	return err
+}
+
+func redactURL(u string) string {
+	if i := strings.Index(u, "@"); i > 0 {
+		if j := strings.Index(u, "://"); j > 0 && j < i {
+			return u[:j+3] + "…" + u[i:]
+		}
+	}
+	return u
+}
+
+// f formats a JSON number, "-" for null.
+func f(v any, dec int) string {
+	x, ok := v.(float64)
+	if !ok || math.IsNaN(x) {
+		return "-"
+	}
+	return fmt.Sprintf("%.*f", dec, x)
+}
+
+// watchLine is the plain line for one message.
+func watchLine(dev, kind string, p map[string]any) string {
+	switch kind {
+	case "breath":
+		return fmt.Sprintf("%s breath %v  rr %s  vti %s  ppeak %s  pplat %s  peep %s  dp %s  cstat %s  fit_r %s  fit_c %s  %v",
+			dev, p["seq"], f(p["rr"], 1), f(p["vti"], 0), f(p["ppeak"], 1), f(p["pplat"], 1), f(p["peep"], 1),
+			f(p["dp"], 1), f(p["cstat"], 1), f(p["fit_r"], 1), f(p["fit_c"], 1), p["flags"])
+	case "event":
+		return fmt.Sprintf("%s event %v %v [%v] %v %s  id %v", dev, p["transition"], p["rule"], p["level"], p["field"], f(p["value"], 2), p["id"])
+	case "status":
+		return fmt.Sprintf("%s status %v", dev, p["state"])
+	}
+	return ""
+}
+
+// renderWatch draws the live view: one block per device.
+func renderWatch(devices map[string]*deviceView) string {
+	var b strings.Builder
+	fmt.Fprintf(&b, "breathd watch — %s — advisory only, not a medical device\n\n", time.Now().Format("15:04:05"))
+	if len(devices) == 0 {
+		b.WriteString("waiting for devices…\n")
+	}
+	names := make([]string, 0, len(devices))
+	for n := range devices {
+		names = append(names, n)
+	}
+	slices.Sort(names)
+	for _, n := range names {
+		d := devices[n]
+		state := "?"
+		if d.status != nil {
+			state = fmt.Sprint(d.status["state"])
+		}
+		fmt.Fprintf(&b, "%-16s %s, last message %s ago\n", n, state, time.Since(d.seen).Round(time.Second))
+		if p := d.breath; p != nil {
+			fmt.Fprintf(&b, "  breath %v   rr %s  vti %s mL  ppeak %s  pplat %s  peep %s  dp %s cmH2O  cstat %s  fit_c %s mL/cmH2O  fit_r %s  mp %s J/min\n",
+				p["seq"], f(p["rr"], 1), f(p["vti"], 0), f(p["ppeak"], 1), f(p["pplat"], 1), f(p["peep"], 1), f(p["dp"], 1),
+				f(p["cstat"], 1), f(p["fit_c"], 1), f(p["fit_r"], 1), f(p["mp"], 1))
+		}
+		if p := d.trend; p != nil {
+			fields, _ := p["fields"].(map[string]any)
+			med := func(name string) string {
+				s, _ := fields[name].(map[string]any)
+				return f(s["median"], 1)
+			}
+			rise, _ := p["rise"].(map[string]any)
+			fmt.Fprintf(&b, "  window %v breaths: dp %s  cstat %s  fit_r %s  ppeak %s   compliance %s/h   peak rise: %v\n",
+				p["breaths"], med("dp"), med("cstat"), med("fit_r"), med("ppeak"), f(p["compliance_slope"], 1), rise["cause"])
+		}
+		if len(d.active) == 0 {
+			b.WriteString("  rules raised: none\n")
+		}
+		for _, a := range d.active {
+			m, _ := a.(map[string]any)
+			fmt.Fprintf(&b, "  RAISED %v [%v] %v = %s\n", m["rule"], m["level"], m["field"], f(m["value"], 2))
+		}
+		b.WriteString("\n")
+	}
+	return b.String()
+}
