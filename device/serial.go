@@ -17,11 +17,15 @@ import (
 
 // SerialConfig is a serial port's settings.
 type SerialConfig struct {
-	Path     string  `yaml:"path"`      // e.g. /dev/ttyUSB0 or /dev/serial/by-id/…
-	Baud     int     `yaml:"baud"`      // default 115200
-	DataBits int     `yaml:"data_bits"` // 5…8, default 8
-	Parity   string  `yaml:"parity"`    // none (default), even, odd, mark, space
-	StopBits float64 `yaml:"stop_bits"` // 1 (default), 1.5, 2
+	Path string `yaml:"path"` // e.g. /dev/ttyUSB0 or /dev/serial/by-id/…
+	// SerialNumber, instead of Path, finds the port by its USB serial
+	// number each time it is opened, so a re-plugged adapter is found
+	// whatever name it gets.
+	SerialNumber string  `yaml:"serial_number"`
+	Baud         int     `yaml:"baud"`      // default 115200
+	DataBits     int     `yaml:"data_bits"` // 5…8, default 8
+	Parity       string  `yaml:"parity"`    // none (default), even, odd, mark, space
+	StopBits     float64 `yaml:"stop_bits"` // 1 (default), 1.5, 2
 
 	MinBackoff time.Duration `yaml:"-"` // first reopen delay; default 100 ms
 	MaxBackoff time.Duration `yaml:"-"` // longest reopen delay; default 5 s
@@ -35,8 +39,8 @@ var parities = map[string]serial.Parity{
 // Validate reports the first setting that cannot be used.
 func (c SerialConfig) Validate() error {
 	_, err := c.mode()
-	if err == nil && c.Path == "" {
-		err = errors.New("serial path is empty")
+	if err == nil && (c.Path == "") == (c.SerialNumber == "") {
+		err = errors.New("give the port's path or its USB serial number (one of them)")
 	}
 	return err
 }
@@ -107,9 +111,13 @@ func OpenSerial(cfg SerialConfig, log zerolog.Logger) (*Serial, error) {
 	if cfg.MaxBackoff <= 0 {
 		cfg.MaxBackoff = 5 * time.Second
 	}
-	p, err := serial.Open(cfg.Path, mode)
+	path, err := cfg.resolve()
 	if err != nil {
-		return nil, explainOpen(cfg.Path, err)
+		return nil, err
+	}
+	p, err := serial.Open(path, mode)
+	if err != nil {
+		return nil, explainOpen(path, err)
 	}
 	s := &Serial{cfg: cfg, mode: mode, log: log, port: p, done: make(chan struct{})}
 	s.health = Health{Connected: true, Since: time.Now()}
@@ -213,7 +221,11 @@ func (s *Serial) reopen() bool {
 			return false
 		case <-time.After(delay):
 		}
-		p, err := serial.Open(s.cfg.Path, s.mode)
+		path, err := s.cfg.resolve()
+		var p serial.Port
+		if err == nil {
+			p, err = serial.Open(path, s.mode)
+		}
 		if err == nil {
 			s.mu.Lock()
 			if s.closing.Load() {
@@ -232,7 +244,7 @@ func (s *Serial) reopen() bool {
 			return true
 		}
 		if tries == 1 || tries%20 == 0 {
-			s.log.Debug().Str("port", s.cfg.Path).Int("tries", tries).Err(explainOpen(s.cfg.Path, err)).Msg("serial port still absent")
+			s.log.Debug().Str("port", s.cfg.Path).Int("tries", tries).Err(err).Msg("serial port still absent")
 		}
 		delay = min(2*delay, s.cfg.MaxBackoff)
 	}
@@ -259,6 +271,24 @@ func (s *Serial) Health() Health {
 	s.hmu.Lock()
 	defer s.hmu.Unlock()
 	return s.health
+}
+
+// resolve returns the port's path: Path, or the port whose USB serial
+// number is SerialNumber.
+func (c SerialConfig) resolve() (string, error) {
+	if c.SerialNumber == "" {
+		return c.Path, nil
+	}
+	ports, err := enumeratePorts()
+	if err != nil {
+		return "", fmt.Errorf("list serial ports: %w", err)
+	}
+	for _, p := range ports {
+		if p.USB && strings.EqualFold(p.SerialNumber, c.SerialNumber) {
+			return p.Path, nil
+		}
+	}
+	return "", fmt.Errorf("no USB serial port with serial number %q is plugged in (breathd ports lists them)", c.SerialNumber)
 }
 
 // PortInfo describes one serial port of the machine.

@@ -8,6 +8,7 @@ import (
 	"math"
 	"math/rand/v2"
 	"os"
+	"path/filepath"
 	"slices"
 	"strings"
 	"time"
@@ -29,6 +30,9 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	pf.register(fs)
 	csvPath := fs.String("csv", "", "write one row per breath as CSV to this file, or - for stdout")
 	eventsPath := fs.String("events", "", "write the rule events as JSON lines to this file, or - for stdout")
+	plotPath := fs.String("plot", "", "draw the recording to this .png or .svg: a pressure/flow/volume strip and the trends")
+	plotFrom := fs.Float64("plot-from", 0, "start of the strip, s of stream time")
+	plotSpan := fs.Float64("plot-span", 30, "length of the strip, s")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -88,6 +92,23 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	if evw != nil {
 		sinks = append(sinks, &eventLines{w: evw})
 	}
+	var pd *plotData
+	if *plotPath != "" {
+		if path == "-" {
+			src.Close()
+			return usagef("--plot needs a file, not stdin: it reads the strip again")
+		}
+		if ext := strings.ToLower(filepath.Ext(*plotPath)); ext != ".png" && ext != ".svg" {
+			src.Close()
+			return usagef("--plot %s: the picture is .png or .svg", *plotPath)
+		}
+		if *plotSpan <= 0 || *plotSpan > 3600 {
+			src.Close()
+			return usagef("--plot-span %g: want 0 < span ≤ 3600 s", *plotSpan)
+		}
+		pd = &plotData{}
+		sinks = append(sinks, pd)
+	}
 	stopBar := showProgress(file, stderr)
 	start := time.Now()
 	st, runErr := stream.Run(ctx, src, stream.Config{Device: idFromPath(path), Format: f, Mechanics: mcfg,
@@ -114,6 +135,12 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		}
 	}
 	sum.print(stderr, st, time.Since(start))
+	if pd != nil && runErr == nil {
+		if err := writePlot(*plotPath, path, f, *plotFrom, *plotSpan, pd); err != nil {
+			return err
+		}
+		fmt.Fprintf(stderr, "  picture: %s\n", *plotPath)
+	}
 	return runErr
 }
 

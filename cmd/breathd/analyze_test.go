@@ -2,6 +2,7 @@ package main
 
 import (
 	"flag"
+	stdpng "image/png"
 	"os"
 	"path/filepath"
 	"strings"
@@ -103,4 +104,50 @@ func absDiff(a, b string) float64 {
 		return x - y
 	}
 	return y - x
+}
+
+// TestPlotDemo renders the demo recording to PNG and SVG and checks the
+// picture is there and not blank.
+func TestPlotDemo(t *testing.T) {
+	dir := t.TempDir()
+	png := filepath.Join(dir, "demo.png")
+	code, _, errs := runCLI(t, "analyze", "--plot", png, "--plot-from", "960", "--plot-span", "20", "testdata/demo.txt.gz")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	f, err := os.Open(png)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	img, err := stdpng.Decode(f)
+	if err != nil {
+		t.Fatalf("not a PNG: %v", err)
+	}
+	b := img.Bounds()
+	if b.Dx() < 500 || b.Dy() < 800 {
+		t.Errorf("picture %v", b)
+	}
+	inked := 0
+	for y := b.Min.Y; y < b.Max.Y; y += 2 {
+		for x := b.Min.X; x < b.Max.X; x += 2 {
+			if r, g, bl, _ := img.At(x, y).RGBA(); r < 0xe000 || g < 0xe000 || bl < 0xe000 {
+				inked++
+			}
+		}
+	}
+	share := float64(inked) / float64(b.Dx()*b.Dy()/4)
+	if share < 0.02 {
+		t.Errorf("only %.1f %% of the picture is drawn", share*100)
+	}
+	svg := filepath.Join(dir, "demo.svg")
+	if code, _, errs := runCLI(t, "analyze", "--plot", svg, "testdata/demo.txt.gz"); code != 0 {
+		t.Fatal(errs)
+	}
+	if data, _ := os.ReadFile(svg); len(data) < 10000 || !strings.Contains(string(data), "<svg") {
+		t.Errorf("svg of %d bytes", len(data))
+	}
+	if code, _, errs := runCLI(t, "analyze", "--plot", filepath.Join(dir, "x.gif"), "testdata/demo.txt.gz"); code != 2 || !strings.Contains(errs, ".png or .svg") {
+		t.Errorf("gif: exit %d %s", code, errs)
+	}
 }

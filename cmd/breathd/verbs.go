@@ -160,6 +160,8 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 		closeAll()
 		return err
 	}
+	stopNotify := notifySystemd(log)
+	defer stopNotify()
 	return runDevices(ctx, runs, cfg.ReportEvery, stdout, log, sess)
 }
 
@@ -280,6 +282,9 @@ func describeSource(d *deviceConfig) string {
 		baud := s.Baud
 		if baud == 0 {
 			baud = 115200
+		}
+		if s.SerialNumber != "" {
+			return fmt.Sprintf("USB serial port with serial number %s at %d baud", s.SerialNumber, baud)
 		}
 		return fmt.Sprintf("serial %s at %d baud", s.Path, baud)
 	case d.File != nil:
