@@ -34,14 +34,15 @@ type Sim struct {
 	fDigits int     // decimals of flow
 	tDigits int     // decimals of t
 
-	out  []byte // formatted, not yet read
-	buf  []byte // out's backing array, reused
-	s    mechanics.SimSample
-	done chan struct{}
-	once sync.Once
-	t0   time.Time
-	n    int64 // samples formatted
-	head bool  // header written
+	out   []byte // formatted, not yet read
+	buf   []byte // out's backing array, reused
+	s     mechanics.SimSample
+	done  chan struct{}
+	once  sync.Once
+	t0    time.Time
+	n     int64 // samples formatted
+	head  bool  // header written
+	timer *time.Timer
 }
 
 // linesPerChunk is how many lines a fast Read formats at once.
@@ -119,16 +120,25 @@ func (s *Sim) fill() bool {
 	}
 	count := linesPerChunk
 	if s.speed > 0 {
+		// Release what is due, in batches of about 40 ms like a serial
+		// port's driver: one wake-up per sample would cost more than the
+		// sample's whole analysis.
 		rate := s.sim.RateHz() * s.speed // samples per wall-clock second
+		batch := max(1, int64(rate*0.04))
 		due := int64(time.Since(s.t0).Seconds()*rate) + 1
-		if due <= s.n {
-			wait := time.Duration(float64(s.n)/rate*float64(time.Second)) - time.Since(s.t0)
+		if due < s.n+batch {
+			wait := time.Duration(float64(s.n+batch-1)/rate*float64(time.Second)) - time.Since(s.t0)
+			if s.timer == nil {
+				s.timer = time.NewTimer(wait)
+			} else {
+				s.timer.Reset(wait)
+			}
 			select {
 			case <-s.done:
 				return false
-			case <-time.After(wait):
+			case <-s.timer.C:
 			}
-			due = s.n + 1
+			due = s.n + batch
 		}
 		count = int(due - s.n)
 	}

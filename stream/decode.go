@@ -56,10 +56,11 @@ const (
 	CauseOutOfRange                 // outside the plausible range
 	CauseTimeBackwards              // time not later than the previous sample
 	CauseBadDirective               // a "# breathd" directive that cannot be read
+	CauseBadHeader                  // a header without paw and flow, or naming a column twice
 	NumCauses
 )
 
-var causeNames = [NumCauses]string{"too_long", "field_count", "not_number", "not_finite", "out_of_range", "time_backwards", "bad_directive"}
+var causeNames = [NumCauses]string{"too_long", "field_count", "not_number", "not_finite", "out_of_range", "time_backwards", "bad_directive", "bad_header"}
 
 // String returns the cause's name as used in counters and payloads.
 func (c Cause) String() string {
@@ -168,6 +169,8 @@ type Decoder struct {
 	counts  Counts
 	lineErr LineError
 	noFast  bool // tests: decode on the general path only
+	// headerErr is why the latest header was refused, for the caller's log
+	headerErr error
 }
 
 // NewDecoder returns a decoder reading r with format f.
@@ -198,6 +201,9 @@ func (d *Decoder) Reset(r io.Reader) {
 	d.format = cfg
 	d.format.Units = copyUnits(cfg.Units)
 }
+
+// HeaderError is why the latest refused header was refused, or nil.
+func (d *Decoder) HeaderError() error { return d.headerErr }
 
 // Counts returns the counters so far.
 func (d *Decoder) Counts() Counts { return d.counts }
@@ -277,6 +283,14 @@ func (d *Decoder) Decode(s *Sample) error {
 		}
 		if !d.resolved {
 			header, err := d.resolve(line)
+			switch {
+			case errors.Is(err, errNotHeader):
+				d.index++
+				return d.bad(CauseNotNumber, -1) // wait for a header or data
+			case errors.Is(err, errBadHeader):
+				d.headerErr = err
+				return d.bad(CauseBadHeader, -1)
+			}
 			if err != nil {
 				d.fatal = &FormatError{Line: d.counts.Lines, Err: err}
 				return d.fatal
@@ -381,6 +395,14 @@ func (d *Decoder) directive(text []byte) error {
 	return nil
 }
 
+// errNotHeader marks a first line that is neither data nor a header: it
+// names no column breathd knows (noise on a live port, a partial line).
+var errNotHeader = errors.New("not a header")
+
+// errBadHeader marks a header that cannot be used: it is skipped as a bad
+// line, and the configured (or default) columns apply to the data.
+var errBadHeader = errors.New("unusable header")
+
 // resolve decides delimiter and columns from the first non-comment line and
 // reports whether that line is a header.
 func (d *Decoder) resolve(line []byte) (header bool, err error) {
@@ -390,8 +412,11 @@ func (d *Decoder) resolve(line []byte) (header bool, err error) {
 		d.delim = detectDelimiter(line)
 	}
 	names, numeric := d.splitNames(line)
+	if !numeric && !namesKnownColumn(names) {
+		return false, errNotHeader
+	}
 	if len(names) > maxColumns {
-		return false, fmt.Errorf("%d columns; at most %d are read", len(names), maxColumns)
+		return false, fmt.Errorf("%w: %d columns; at most %d are read", errBadHeader, len(names), maxColumns)
 	}
 	if numeric {
 		names = f.Columns
@@ -400,6 +425,9 @@ func (d *Decoder) resolve(line []byte) (header bool, err error) {
 		}
 	}
 	if err := d.setColumns(names); err != nil {
+		if !numeric {
+			return false, fmt.Errorf("%w: %v", errBadHeader, err)
+		}
 		return false, err
 	}
 	d.rateHz = f.RateHz
@@ -423,6 +451,15 @@ func (d *Decoder) resolve(line []byte) (header bool, err error) {
 	d.scale[kindFlow] *= sign
 	d.resolved = true
 	return !numeric, nil
+}
+
+func namesKnownColumn(names []string) bool {
+	for _, n := range names {
+		if isKnownColumn(strings.TrimSpace(n)) {
+			return true
+		}
+	}
+	return false
 }
 
 func detectDelimiter(line []byte) byte {

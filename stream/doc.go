@@ -8,8 +8,10 @@
 //
 //   - a comment: its first non-blank byte is '#'. Comments are skipped, except
 //     the two directives a breathd recording writes (see below);
-//   - a header: the first non-comment line whose fields are not all numbers.
-//     It names the columns;
+//   - a header: the first non-comment line whose fields are not all numbers
+//     and name at least one known column. It names the columns. A line
+//     before it that names none (noise on a port that was opened mid-stream)
+//     is a bad line;
 //   - a data line: one sample, one field per column.
 //
 // Fields are separated by ',' ';' a tab, or runs of spaces. With the default

@@ -395,6 +395,11 @@ func (l *loop) wallTicks(done <-chan struct{}) {
 // badLine logs the first bad lines of each cause, then every 1000th.
 func (l *loop) badLine(le *LineError) {
 	c := l.dec.counts.Bad[le.Cause]
+	if le.Cause == CauseBadHeader {
+		l.cfg.Log.Warn().Int64("line", le.Line).Err(l.dec.HeaderError()).
+			Msg("a header line breathd cannot use was skipped: the data is read with the configured columns (check --columns)")
+		return
+	}
 	if c <= 3 || c%1000 == 0 {
 		l.cfg.Log.Debug().Int64("line", le.Line).Str("cause", le.Cause.String()).Int64("count", c).Msg("bad line skipped")
 	}

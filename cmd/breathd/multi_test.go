@@ -79,8 +79,8 @@ devices:
     serial: {path: %s}
 `, port, scen, unplug, noisy)), 0o600)
 	run := breathd("run", "--config", cfg)
-	var out strings.Builder
-	run.Stdout, run.Stderr = &out, &out
+	out := &syncBuffer{}
+	run.Stdout, run.Stderr = out, out
 	if err := run.Start(); err != nil {
 		t.Fatal(err)
 	}
@@ -111,6 +111,24 @@ devices:
 		t.Errorf("output lacks the loss or the counters:\n%s", tail([]byte(text)))
 	}
 	t.Logf("steady %d breaths in order, noisy %d, unplugged %d", len(steady), len(c.seqs("noisy")), len(c.seqs("unplugged")))
+}
+
+// syncBuffer is a buffer a process writes to while the test reads it.
+type syncBuffer struct {
+	mu  sync.Mutex
+	buf strings.Builder
+}
+
+func (s *syncBuffer) Write(p []byte) (int, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.buf.Write(p)
+}
+
+func (s *syncBuffer) String() string {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.buf.String()
 }
 
 // breathLog records every breath record's seq and gap flags by device.
