@@ -165,9 +165,9 @@ func rolling(st *state, tr *mechanics.Trend) float64 {
 	}
 	switch st.rolling {
 	case "median":
-		return tr.Stats[st.index].Median
+		return tr.StatAt(st.index).Median
 	case "iqr":
-		return tr.Stats[st.index].IQR()
+		return tr.StatAt(st.index).IQR()
 	case "slope.compliance":
 		return tr.CSlope
 	case "slope.dp":

@@ -9,6 +9,7 @@ import (
 	"io/fs"
 	"os"
 	"sync/atomic"
+	"syscall"
 )
 
 // File is a recorded stream read from disk, gzip-compressed or not (told
@@ -88,10 +89,27 @@ func (c countingReader) Read(p []byte) (int, error) {
 // Pacer returns the file's pacer.
 func (f *File) Pacer() *Pacer { return &f.pacer }
 
-// Stdin is standard input as a source; closing it unblocks a pending Read.
+// Stdin is standard input as a source; closing it unblocks a pending
+// Read. (A read on os.Stdin as Go opens it blocks in the kernel and a
+// Close does not end it, so SIGTERM could not stop breathd reading a quiet
+// pipe: the descriptor is made non-blocking and reopened so that the
+// runtime's poller owns it.)
 func Stdin() io.ReadCloser {
-	r, _ := maybeGzip(os.Stdin)
-	return readCloser{r, os.Stdin}
+	in := os.Stdin
+	if err := syscall.SetNonblock(0, true); err == nil {
+		in = os.NewFile(0, "/dev/stdin")
+	}
+	r, _ := maybeGzip(in)
+	return readCloser{r, stdinCloser{in}}
+}
+
+// stdinCloser closes standard input and gives the descriptor back its
+// blocking mode: the terminal or pipe is shared with the shell.
+type stdinCloser struct{ f *os.File }
+
+func (s stdinCloser) Close() error {
+	syscall.SetNonblock(0, false)
+	return s.f.Close()
 }
 
 type readCloser struct {

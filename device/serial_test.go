@@ -86,7 +86,7 @@ func TestSerialPtyDataUnplugReplug(t *testing.T) {
 
 	// Unplug in the middle of a line: the partial line must be ended, not
 	// glued to the first line after the port comes back.
-	for round := 1; round <= 3; round++ {
+	for round := 1; round <= 10; round++ {
 		master.WriteString("0.01,5.")
 		time.Sleep(50 * time.Millisecond)
 		master.Close()

@@ -78,7 +78,9 @@ type Trend struct {
 	At     float64 // stream time of the latest breath's end, s
 	N      int     // breaths in the window
 	Span   float64 // stream time the window covers, s
-	Stats  []Stat  // one per entry of Fields
+	stats  []Stat  // one per entry of Fields, computed when first asked
+	done   uint64  // bit i: stats[i] computed
+	w      *Window
 	CSlope float64 // compliance slope, mL/cmH2O per hour (cstat, or fit_c without plateaus)
 	// CChange is the window's median compliance against the baseline's, in
 	// % (negative: falling); cstat when both have plateaus, else fit_c of
@@ -94,7 +96,18 @@ func (t *Trend) Stat(name string) (Stat, bool) {
 	if i < 0 {
 		return Stat{}, false
 	}
-	return t.Stats[i], true
+	return t.StatAt(i), true
+}
+
+// StatAt returns the statistics of Fields[i], computing them on the first
+// call after the breath: rules and sinks that need a few fields do not pay
+// for all of them.
+func (t *Trend) StatAt(i int) Stat {
+	if t.done&(1<<i) == 0 {
+		t.stats[i] = t.w.stat(t.w.idx, i)
+		t.done |= 1 << i
+	}
+	return t.stats[i]
 }
 
 // part is what the baseline keeps of each breath.
@@ -147,7 +160,8 @@ func NewWindow(cfg WindowConfig) (*Window, error) {
 	hcap := int((cfg.Baseline+cfg.Span)/60*60) + cfg.Breaths
 	w.hist = make([]part, hcap)
 	w.scratch = make([]float64, 0, max(hcap, cfg.Breaths))
-	w.trend.Stats = make([]Stat, len(Fields))
+	w.trend.stats = make([]Stat, len(Fields))
+	w.trend.w = w
 	w.idx = make([]int, 0, cfg.Breaths)
 	w.base.at = nan
 	return w, nil
@@ -172,15 +186,14 @@ func (w *Window) Trend() *Trend {
 	}
 	w.stale = false
 	tr.At = w.last
-	idx := w.inWindow(w.last - w.cfg.Span)
+	w.idx = w.inWindow(w.last - w.cfg.Span)
+	idx := w.idx
 	tr.N = len(idx)
 	tr.Span = 0
 	if tr.N > 0 {
 		tr.Span = w.last - w.ring[idx[0]][0]
 	}
-	for f := range Fields {
-		tr.Stats[f] = w.stat(idx, f)
-	}
+	tr.done = 0 // the field statistics follow on demand, over w.idx
 	tr.CSlope = w.complianceSlope(idx)
 	tr.DPSlope = w.slope(idx, fieldIndex("dp"), false)
 	tr.Rise = w.attribute(w.last, idx)

@@ -95,7 +95,7 @@ type risePayload struct {
 func TrendJSON(device string, seq int64, tr *mechanics.Trend, at time.Time) []byte {
 	fields := make(map[string]statPayload, len(mechanics.Fields))
 	for i, f := range mechanics.Fields {
-		s := tr.Stats[i]
+		s := tr.StatAt(i)
 		fields[f] = statPayload{num(s.Median), num(s.Q1), num(s.Q3), num(s.IQR()), s.N}
 	}
 	r := tr.Rise

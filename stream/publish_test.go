@@ -3,6 +3,8 @@ package stream
 import (
 	"context"
 	"encoding/json"
+	"fmt"
+	"os"
 	"strings"
 	"sync"
 	"testing"
@@ -257,5 +259,62 @@ func TestValidateTopicParts(t *testing.T) {
 		if err := ValidateTopicParts(c[0], c[1]); err == nil {
 			t.Errorf("%v accepted", c)
 		}
+	}
+}
+
+// TestFullStateDirectory: when the disk is full (writes to /dev/full fail
+// with ENOSPC) the event is still kept in memory and delivered, and what
+// could not be queued on disk is counted and reported.
+func TestFullStateDirectory(t *testing.T) {
+	full, err := os.OpenFile("/dev/full", os.O_WRONLY, 0)
+	if err != nil {
+		t.Skip("no /dev/full here")
+	}
+	sp, err := openSpool(t.TempDir())
+	if err != nil {
+		t.Fatal(err)
+	}
+	sp.file.Close()
+	sp.file = full
+	if err := sp.push("breathd/x/event", []byte(`{"id":"x/r/a-1"}`)); err == nil || !strings.Contains(err.Error(), "kept in memory only") {
+		t.Errorf("push to a full disk: %v", err)
+	}
+	if unq, last := sp.counts(); unq != 1 || !strings.Contains(last, "no space") {
+		t.Errorf("unqueued %d, last error %q", unq, last)
+	}
+	if m, ok := sp.head(); !ok || string(m.Payload) != `{"id":"x/r/a-1"}` {
+		t.Error("the event is not kept in memory")
+	}
+	if _, err := openSpool("/proc/breathd-cannot-write-here"); err == nil {
+		t.Error("an unwritable state directory accepted at start")
+	}
+}
+
+// TestSpoolSurvivesRestart: queued events are read back after a restart,
+// the acknowledged ones are not sent again.
+func TestSpoolSurvivesRestart(t *testing.T) {
+	dir := t.TempDir()
+	sp, _ := openSpool(dir)
+	for i := 1; i <= 3; i++ {
+		sp.push("t", []byte(fmt.Sprintf(`{"n":%d}`, i)))
+	}
+	m, _ := sp.head()
+	sp.ack(m.Seq)
+	sp.setActive([]byte(`{"active":[]}`))
+	sp.close()
+	again, err := openSpool(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if again.depth() != 3 { // two events and the active set
+		t.Fatalf("depth %d after restart", again.depth())
+	}
+	m, _ = again.head()
+	if string(m.Payload) != `{"n":2}` || m.Seq != 2 {
+		t.Errorf("head after restart %+v", m)
+	}
+	again.push("t", []byte(`{"n":4}`))
+	if again.pending[len(again.pending)-1].Seq != 4 {
+		t.Error("sequence numbers restart")
 	}
 }

@@ -479,3 +479,39 @@ func TestReplayPublishesAndWatchShows(t *testing.T) {
 		t.Errorf("watch printed:\n%s", tail(out.Bytes()))
 	}
 }
+
+// TestSIGTERMDuringBrokerOutage: SIGTERM while the broker is away ends
+// breathd with exit 0 after the drain deadline; the undelivered events
+// stay in the state directory.
+func TestSIGTERMDuringBrokerOutage(t *testing.T) {
+	port := freePort(t) // nothing listens there
+	state := t.TempDir()
+	cmd := breathd("replay", "--id", "bed6", "--broker", fmt.Sprintf("mqtt://127.0.0.1:%d", port), "--state-dir", state, "-")
+	stdin, _ := cmd.StdinPipe()
+	out := &syncBuffer{}
+	cmd.Stdout, cmd.Stderr = out, out
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	demo, _ := os.ReadFile(filepath.Join(root, "testdata", "demo.txt.gz"))
+	go func() { stdin.Write(demo) }() // stdin stays open: breathd waits for more
+	queue := filepath.Join(state, "queue", "bed6", "events.log")
+	waitFor(t, "queued events", 15*time.Second, func() bool {
+		b, _ := os.ReadFile(queue)
+		return bytes.Count(b, []byte("\n")) >= 7
+	})
+	start := time.Now()
+	cmd.Process.Signal(syscall.SIGTERM)
+	err := cmd.Wait()
+	took := time.Since(start)
+	if err != nil {
+		t.Errorf("exit after SIGTERM during an outage: %v\n%s", err, tail([]byte(out.String())))
+	}
+	if took > 9*time.Second {
+		t.Errorf("took %v to stop", took)
+	}
+	if !strings.Contains(out.String(), "queued messages not delivered; they stay in the state directory") {
+		t.Errorf("no word on the undelivered events:\n%s", tail([]byte(out.String())))
+	}
+	t.Logf("stopped %.1f s after SIGTERM", took.Seconds())
+}
