@@ -2,9 +2,9 @@ package main
 
 import (
 	"bytes"
+	"fmt"
 	"os"
 	"os/exec"
-	"fmt"
 	"path/filepath"
 	"strings"
 	"testing"
