@@ -211,3 +211,26 @@ func TestRunReadsPtyAndStopsOnSIGTERM(t *testing.T) {
 		t.Fatalf("after SIGTERM: %v; stderr:\n%s", err, stderr.String())
 	}
 }
+
+// TestServiceUnitHardening: the systemd unit runs breathd without root,
+// without capabilities, on a read-only system, and lets it report ready
+// and ping the watchdog.
+func TestServiceUnitHardening(t *testing.T) {
+	unit, err := os.ReadFile(filepath.Join(root, "configs", "breathd.service"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	text := string(unit)
+	for _, want := range []string{"DynamicUser=yes", "SupplementaryGroups=dialout", "ProtectSystem=strict",
+		"NoNewPrivileges=yes", "CapabilityBoundingSet=\n", "StateDirectory=breathd", "Type=notify", "WatchdogSec=",
+		"Restart=on-failure", "DevicePolicy=closed"} {
+		if !strings.Contains(text, want) {
+			t.Errorf("unit lacks %q", want)
+		}
+	}
+	for _, bad := range []string{"User=root", "AmbientCapabilities=CAP", "PermissionsStartOnly"} {
+		if strings.Contains(text, bad) {
+			t.Errorf("unit has %q", bad)
+		}
+	}
+}

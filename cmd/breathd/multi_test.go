@@ -92,7 +92,7 @@ devices:
 	time.Sleep(6 * time.Second)
 
 	steady := c.seqs("steady")
-	if len(steady) < 20 {
+	if len(steady) < 12 {
 		t.Fatalf("steady device published %d breaths; output:\n%s", len(steady), out.String())
 	}
 	for i := 1; i < len(steady); i++ {
@@ -103,7 +103,7 @@ devices:
 	if g := c.gapFlags("steady"); g != 0 {
 		t.Errorf("steady device: %d breaths flagged gap", g)
 	}
-	if n := len(c.seqs("noisy")); n < 10 {
+	if n := len(c.seqs("noisy")); n < 6 {
 		t.Errorf("noisy device published only %d breaths", n)
 	}
 	text := out.String()
