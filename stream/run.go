@@ -96,11 +96,16 @@ type Control struct {
 // ends.
 var ErrNotRunning = errors.New("device not running")
 
+// running returns the loop while Run runs, else nil.
+func (c *Control) running() *loop {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	return c.l
+}
+
 // Ack acknowledges the raised rule whose raising event has this id.
 func (c *Control) Ack(id string) error {
-	c.mu.Lock()
-	l := c.l
-	c.mu.Unlock()
+	l := c.running()
 	if l == nil {
 		return ErrNotRunning
 	}
@@ -113,9 +118,7 @@ func (c *Control) Ack(id string) error {
 
 // Status returns the device's counters now (zero before Run starts).
 func (c *Control) Status() Status {
-	c.mu.Lock()
-	l := c.l
-	c.mu.Unlock()
+	l := c.running()
 	if l == nil {
 		return Status{}
 	}
@@ -124,9 +127,7 @@ func (c *Control) Status() Status {
 
 // Active returns the rules raised now.
 func (c *Control) Active() []alerts.Active {
-	c.mu.Lock()
-	l := c.l
-	c.mu.Unlock()
+	l := c.running()
 	if l == nil {
 		return nil
 	}

@@ -3,6 +3,7 @@ package main
 import (
 	"bufio"
 	"context"
+	"errors"
 	"fmt"
 	"io"
 	"math"
@@ -60,37 +61,21 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	}
 	sum := newSummary()
 	sinks := stream.Sinks{sum}
+	var outs outputs
+	defer outs.closeAll()
 	var csv *stream.CSVWriter
-	var csvFile *os.File
-	switch *csvPath {
-	case "":
-	case "-":
-		csv = stream.NewCSVWriter(stdout)
-	default:
-		if csvFile, err = os.Create(*csvPath); err != nil {
-			src.Close()
-			return fmt.Errorf("--csv: %w", err)
-		}
-		csv = stream.NewCSVWriter(csvFile)
-	}
-	if csv != nil {
+	if w, err := outs.open("--csv", *csvPath, stdout); err != nil {
+		src.Close()
+		return err
+	} else if w != nil {
+		csv = stream.NewCSVWriter(w)
 		sinks = append(sinks, csv)
 	}
-	var evFile *os.File
-	var evw *bufio.Writer
-	switch *eventsPath {
-	case "":
-	case "-":
-		evw = bufio.NewWriter(stdout)
-	default:
-		if evFile, err = os.Create(*eventsPath); err != nil {
-			src.Close()
-			return fmt.Errorf("--events: %w", err)
-		}
-		evw = bufio.NewWriter(evFile)
-	}
-	if evw != nil {
-		sinks = append(sinks, &eventLines{w: evw})
+	if w, err := outs.open("--events", *eventsPath, stdout); err != nil {
+		src.Close()
+		return err
+	} else if w != nil {
+		sinks = append(sinks, &eventLines{w: w})
 	}
 	var pd *plotData
 	if *plotPath != "" {
@@ -119,20 +104,8 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 			runErr = fmt.Errorf("--csv: %w", err)
 		}
 	}
-	if evw != nil {
-		if err := evw.Flush(); err != nil && runErr == nil {
-			runErr = fmt.Errorf("--events: %w", err)
-		}
-	}
-	if evFile != nil {
-		if err := evFile.Close(); err != nil && runErr == nil {
-			runErr = fmt.Errorf("--events: %w", err)
-		}
-	}
-	if csvFile != nil {
-		if err := csvFile.Close(); err != nil && runErr == nil {
-			runErr = fmt.Errorf("--csv: %w", err)
-		}
+	if err := outs.closeAll(); err != nil && runErr == nil {
+		runErr = err
 	}
 	sum.print(stderr, st, time.Since(start))
 	if pd != nil && runErr == nil {
@@ -142,6 +115,56 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		fmt.Fprintf(stderr, "  picture: %s\n", *plotPath)
 	}
 	return runErr
+}
+
+// outputs are the files analyze writes: a path, "-" for stdout, or ""
+// for none.
+type outputs struct {
+	closers []func() error
+}
+
+// open returns a buffered writer for path (nil for ""), to be flushed and
+// closed by closeAll.
+func (o *outputs) open(flag, path string, stdout io.Writer) (io.Writer, error) {
+	var w io.Writer
+	var f *os.File
+	switch path {
+	case "":
+		return nil, nil
+	case "-":
+		w = stdout
+	default:
+		var err error
+		if f, err = os.Create(path); err != nil {
+			return nil, fmt.Errorf("%s: %w", flag, err)
+		}
+		w = f
+	}
+	bw := bufio.NewWriter(w)
+	o.closers = append(o.closers, func() error {
+		err := bw.Flush()
+		if f != nil {
+			err = errors.Join(err, f.Close())
+		}
+		if err != nil {
+			return fmt.Errorf("%s: %w", flag, err)
+		}
+		return nil
+	})
+	return bw, nil
+}
+
+// closeAll flushes and closes every output once and returns the first
+// error.
+func (o *outputs) closeAll() error {
+	var first error
+	for _, c := range o.closers {
+		if err := c(); err != nil && first == nil {
+			first = err
+		}
+	}
+	o.closers = nil
+	return first
 }
 
 // patientFlags give predicted body weight its inputs.
