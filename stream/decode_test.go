@@ -418,6 +418,21 @@ func FuzzDecode(f *testing.F) {
 		if c.Samples+c.BadTotal() > c.Lines {
 			t.Fatalf("counts %+v exceed lines", c)
 		}
+		// the one-pass fast path and the general path agree bit for bit
+		fast, _ := NewDecoder(bytes.NewReader(data), Format{Delimiter: delim})
+		slow, _ := NewDecoder(bytes.NewReader(data), Format{Delimiter: delim})
+		slow.noFast = true
+		a, ca, ea := drain(fast)
+		b, cb, eb := drain(slow)
+		if (ea == nil) != (eb == nil) || len(a) != len(b) || ca.Bad != cb.Bad {
+			t.Fatalf("fast path %d samples %v %v, general path %d samples %v %v", len(a), ca.Bad, ea, len(b), cb.Bad, eb)
+		}
+		for i := range a {
+			if math.Float64bits(a[i].T) != math.Float64bits(b[i].T) || math.Float64bits(a[i].Paw) != math.Float64bits(b[i].Paw) ||
+				math.Float64bits(a[i].Flow) != math.Float64bits(b[i].Flow) || a[i].Gap != b[i].Gap {
+				t.Fatalf("sample %d: fast %+v, general %+v", i, a[i], b[i])
+			}
+		}
 	})
 }
 
