@@ -366,9 +366,9 @@ func (s *Segmenter) fit(b *Breath, j int) {
 // the constant-flow part of inflation (from a tenth of it to its last
 // sample before the flow ends) and returns b (Ranieri et al.,
 // Anesthesiology 2000;93:1320). For each b the fit is linear in a and c;
-// b is found by golden-section search on the residual over [0.2, 5] to
-// 0.005, with t^b as exp(b·ln t) from logarithms taken once; above
-// 2·siPoints samples, every k-th so that about siPoints remain.
+// b minimises the residual over [0.2, 5] by Brent's method to 0.002, with
+// t^b as exp(b·ln t) from logarithms taken once; above 2·siPoints
+// samples, every k-th so that about siPoints remain.
 func (s *Segmenter) stressIndex(flowEnd int) float64 {
 	lo, hi := flowEnd/10+1, flowEnd-1
 	if hi-lo < 6 {
@@ -409,20 +409,81 @@ func (s *Segmenter) stressIndex(flowEnd int) float64 {
 		}
 		return syy - sxy*sxy/sxx
 	}
-	const phi = 0.6180339887498949
-	a, z := 0.2, 5.0
-	x1, x2 := z-phi*(z-a), a+phi*(z-a)
-	f1, f2 := sse(x1), sse(x2)
-	for z-a > 5e-3 {
-		if f1 < f2 {
-			z, x2, f2 = x2, x1, f1
-			x1 = z - phi*(z-a)
-			f1 = sse(x1)
+	b, _ := minimize(sse, 0.2, 5, 2e-3)
+	return b
+}
+
+// minimize finds a minimum of f on [a, b] to within about tol by Brent's
+// method (Brent, Algorithms for Minimization without Derivatives, 1973,
+// ch. 5): parabolic steps where they behave, golden-section steps where
+// they do not. It returns the point and the number of evaluations.
+func minimize(f func(float64) float64, a, b, tol float64) (float64, int) {
+	const c = 0.3819660112501051 // (3 − √5)/2
+	x := a + c*(b-a)
+	w, v := x, x
+	fx := f(x)
+	fw, fv := fx, fx
+	evals := 1
+	var d, e float64
+	for evals < 100 {
+		m := (a + b) / 2
+		tol1 := 1e-10*math.Abs(x) + tol/3
+		tol2 := 2 * tol1
+		if math.Abs(x-m) <= tol2-(b-a)/2 {
+			break
+		}
+		parabolic := false
+		if math.Abs(e) > tol1 {
+			r := (x - w) * (fx - fv)
+			q := (x - v) * (fx - fw)
+			p := (x-v)*q - (x-w)*r
+			q = 2 * (q - r)
+			if q > 0 {
+				p = -p
+			} else {
+				q = -q
+			}
+			if math.Abs(p) < math.Abs(q*e/2) && p > q*(a-x) && p < q*(b-x) {
+				e, d = d, p/q
+				parabolic = true
+				if u := x + d; u-a < tol2 || b-u < tol2 {
+					d = math.Copysign(tol1, m-x)
+				}
+			}
+		}
+		if !parabolic {
+			if x < m {
+				e = b - x
+			} else {
+				e = a - x
+			}
+			d = c * e
+		}
+		u := x + d
+		if math.Abs(d) < tol1 {
+			u = x + math.Copysign(tol1, d)
+		}
+		fu := f(u)
+		evals++
+		if fu <= fx {
+			if u < x {
+				b = x
+			} else {
+				a = x
+			}
+			v, fv, w, fw, x, fx = w, fw, x, fx, u, fu
+			continue
+		}
+		if u < x {
+			a = u
 		} else {
-			a, x1, f1 = x1, x2, f2
-			x2 = a + phi*(z-a)
-			f2 = sse(x2)
+			b = u
+		}
+		if fu <= fw || w == x {
+			v, fv, w, fw = w, fw, u, fu
+		} else if fu <= fv || v == x || v == w {
+			v, fv = u, fu
 		}
 	}
-	return (a + z) / 2
+	return x, evals
 }

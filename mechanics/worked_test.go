@@ -233,3 +233,15 @@ func TestActiveBreathsFlagged(t *testing.T) {
 		t.Errorf("%d of %d passive breaths flagged", wrong, len(pairs))
 	}
 }
+
+// TestMinimizeAgainstGrid: Brent's minimiser against a fine grid search
+// on smooth functions with known minima (common practice, no source).
+func TestMinimizeAgainstGrid(t *testing.T) {
+	for _, m := range []float64{0.35, 0.9, 1.0, 1.27, 3.3, 4.9} {
+		f := func(x float64) float64 { return math.Pow(x-m, 2) + 0.1*math.Pow(x-m, 4) }
+		got, evals := minimize(f, 0.2, 5, 2e-3)
+		if !near(got, m, 2e-3) || evals > 30 {
+			t.Errorf("minimum %.4f: got %.4f in %d evaluations", m, got, evals)
+		}
+	}
+}

@@ -9,6 +9,7 @@ import (
 	"testing"
 	"time"
 
+	"breathd/alerts"
 	"breathd/device"
 	"breathd/mechanics"
 )
@@ -32,7 +33,8 @@ type countBreaths struct{ n int }
 func (c *countBreaths) Breath(string, *mechanics.Breath, *mechanics.Window) { c.n++ }
 
 // BenchmarkAnalyze runs the whole per-device loop — decode, breath
-// detection, every metric, the rolling window — over the day-long stream;
+// detection, every metric, the rolling window, the default rules — over
+// the day-long stream;
 // one op is the whole day. allocs/sample is the allocation per sample.
 func BenchmarkAnalyze(b *testing.B) {
 	data := simDay()
@@ -43,7 +45,7 @@ func BenchmarkAnalyze(b *testing.B) {
 	b.ResetTimer()
 	for range b.N {
 		sink := &countBreaths{}
-		st, err := Run(context.Background(), io.NopCloser(bytes.NewReader(data)), Config{Device: "bench", Sink: sink})
+		st, err := Run(context.Background(), io.NopCloser(bytes.NewReader(data)), Config{Device: "bench", Sink: sink, Rules: alerts.Defaults()})
 		if err != nil || sink.n < 21000 {
 			b.Fatalf("%v, %d breaths", err, sink.n)
 		}
