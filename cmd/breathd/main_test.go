@@ -122,6 +122,10 @@ func TestCheckExampleConfig(t *testing.T) {
 	if code != 0 || !strings.Contains(out, "bed1") || !strings.Contains(out, "serial /dev/ttyUSB0 at 115200 baud") {
 		t.Fatalf("exit %d\n%s%s", code, out, errs)
 	}
+	code, out, errs = runCLI(t, "check", "configs/simulated-ward.yaml")
+	if code != 0 || !strings.Contains(out, "4 device(s)") || !strings.Contains(out, `simulated patient "stiffening lung"`) {
+		t.Fatalf("simulated ward: exit %d\n%s%s", code, out, errs)
+	}
 }
 
 // TestRecordingReplaysWithoutFlags: a stream in an unusual format, recorded
