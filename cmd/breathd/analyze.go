@@ -242,15 +242,18 @@ type summary struct {
 	n     int64
 	first float64
 	last  float64
-	flags map[string]int64
+	flags [16]int64 // by flag bit
 	res   [][]float64
 	seen  []int64
 	rng   *rand.Rand
 }
 
 func newSummary() *summary {
-	s := &summary{flags: map[string]int64{}, res: make([][]float64, len(summaryFields)),
+	s := &summary{res: make([][]float64, len(summaryFields)),
 		seen: make([]int64, len(summaryFields)), rng: rand.New(rand.NewPCG(1, 2))}
+	for i := range s.res {
+		s.res[i] = make([]float64, 0, reservoirSize) // allocated once: the same memory for any file
+	}
 	return s
 }
 
@@ -260,8 +263,10 @@ func (s *summary) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
 	}
 	s.n++
 	s.last = b.TEnd
-	for _, w := range b.Flags.Words() {
-		s.flags[w]++
+	for i := range s.flags {
+		if b.Flags&(1<<i) != 0 {
+			s.flags[i]++ // counted by bit: no allocation per breath
+		}
 	}
 	for i, f := range summaryFields {
 		v, _ := b.Field(f)
@@ -301,22 +306,15 @@ func (s *summary) print(w io.Writer, st stream.Status, took time.Duration) {
 		fmt.Fprintf(w, " %s %.1f", f, x[len(x)/2])
 	}
 	fmt.Fprintln(w)
-	if len(s.flags) > 0 {
-		var parts []string
-		for _, k := range slices.Sorted(mapKeys(s.flags)) {
-			parts = append(parts, fmt.Sprintf("%s %d", k, s.flags[k]))
+	var parts []string
+	for i, n := range s.flags {
+		if n > 0 {
+			parts = append(parts, fmt.Sprintf("%s %d", mechanics.Flags(1<<i), n))
 		}
-		fmt.Fprintf(w, "  flags: %s\n", strings.Join(parts, ", "))
 	}
-}
-
-func mapKeys(m map[string]int64) func(func(string) bool) {
-	return func(yield func(string) bool) {
-		for k := range m {
-			if !yield(k) {
-				return
-			}
-		}
+	if len(parts) > 0 {
+		slices.Sort(parts)
+		fmt.Fprintf(w, "  flags: %s\n", strings.Join(parts, ", "))
 	}
 }
 
