@@ -86,6 +86,11 @@ type Trend struct {
 	// % (negative: falling); cstat when both have plateaus, else fit_c of
 	// reliable breaths. NaN without enough breaths.
 	CChange float64
+	// NetFlow is the median over the window of each breath's net flow,
+	// (vti − vte)/duration, in L/min: with no leak it is the flow sensor's
+	// offset drift (volume is re-zeroed at every breath, so the drift does
+	// not accumulate); with a leak it includes the leak.
+	NetFlow float64
 	DPSlope float64 // driving pressure slope, cmH2O per hour
 	Rise    Attribution
 }
@@ -194,6 +199,7 @@ func (w *Window) Trend() *Trend {
 		tr.Span = w.last - w.ring[idx[0]][0]
 	}
 	tr.done = 0 // the field statistics follow on demand, over w.idx
+	tr.NetFlow = w.netFlow(idx)
 	tr.CSlope = w.complianceSlope(idx)
 	tr.DPSlope = w.slope(idx, fieldIndex("dp"), false)
 	tr.Rise = w.attribute(w.last, idx)
@@ -240,6 +246,19 @@ func quantile(sorted []float64, q float64) float64 {
 		return sorted[len(sorted)-1]
 	}
 	return sorted[i] + (pos-float64(i))*(sorted[i+1]-sorted[i])
+}
+
+// netFlow is the median of (vti − vte)/(t_end − t_start) over the
+// window, L/min.
+func (w *Window) netFlow(idx []int) float64 {
+	x := w.scratch[:0]
+	for _, slot := range idx {
+		v := w.ring[slot]
+		if d := v[1] - v[0]; d > 0 && !math.IsNaN(v[iVTi]) && !math.IsNaN(v[iVTe]) {
+			x = append(x, (v[iVTi]-v[iVTe])/d*0.06)
+		}
+	}
+	return summarize(x).Median
 }
 
 // complianceSlope uses cstat when at least three breaths have one, else
@@ -337,6 +356,7 @@ func (w *Window) current(idx []int, get func(p part) float64) (float64, int) {
 var (
 	iPeak, iPlat, iPEEP = fieldIndex("ppeak"), fieldIndex("pplat"), fieldIndex("peep")
 	iVTi, iFitC, iCstat = fieldIndex("vti"), fieldIndex("fit_c"), fieldIndex("cstat")
+	iVTe                = fieldIndex("vte")
 )
 
 // partOf derives a breath's parts from its stored values.

@@ -131,3 +131,26 @@ func TestWindowDoesNotAllocate(t *testing.T) {
 		t.Errorf("%v allocations per Add", allocs)
 	}
 }
+
+// TestNetFlowShowsDrift: a flow sensor drifting by +3 L/min shows as a net
+// inward flow of about 3 L/min over the window (the drift adds 3 L/min ×
+// the breath's duration to vti − vte; common practice, no source).
+func TestNetFlowShowsDrift(t *testing.T) {
+	sc := Scenario{Seed: 2, RateHz: 100, Duration: 5 * time.Minute,
+		Settings: Settings{Mode: ModeVC, R: 10, C: 50, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3},
+		Sensor:   Sensor{PawNoise: 0.2, FlowNoise: 0.5, FlowDrift: 36}} // 36 L/min per hour: 3 L/min at 5 min
+	sc.Defaults()
+	sim := NewSim(sc, nil)
+	seg, _ := NewSegmenter(Config{}, 100)
+	w, _ := NewWindow(WindowConfig{})
+	var s SimSample
+	for sim.Next(&s) {
+		if b := seg.Add(s.T, s.Paw, s.Flow, false); b != nil {
+			w.Add(b)
+		}
+	}
+	// the window holds the last 20 breaths (about 80 s): the drift then is 2.2–3 L/min
+	if nf := w.Trend().NetFlow; nf < 2 || nf > 3.2 {
+		t.Errorf("net flow %.2f L/min, want the drift of about 2.6", nf)
+	}
+}

@@ -111,9 +111,10 @@ func TrendJSON(device string, seq int64, tr *mechanics.Trend, at time.Time) []by
 		ComplianceSlope  num                    `json:"compliance_slope"`
 		DPSlope          num                    `json:"dp_slope"`
 		ComplianceChange num                    `json:"compliance_change"`
+		NetFlow          num                    `json:"net_flow"`
 		Rise             risePayload            `json:"rise"`
 	}{PayloadVersion, device, seq, at.UTC().Format(time.RFC3339Nano), num(tr.At), tr.N, num(tr.Span), fields,
-		num(tr.CSlope), num(tr.DPSlope), num(tr.CChange),
+		num(tr.CSlope), num(tr.DPSlope), num(tr.CChange), num(tr.NetFlow),
 		risePayload{r.Cause, r.Method, num(r.PeakRise), num(r.ResistiveRise), num(r.ElasticRise), r.BaselineBreaths}})
 	return out
 }
