@@ -3,6 +3,7 @@ package device
 import (
 	"bufio"
 	"errors"
+	"fmt"
 	"io"
 	"os"
 	"path/filepath"
@@ -114,14 +115,41 @@ func waitFor(t *testing.T, cond func() bool) {
 	}
 }
 
-func TestSerialCloseUnblocksRead(t *testing.T) {
+// openedPty makes a pty and opens its slave as a Serial; both are closed
+// when the test ends.
+func openedPty(t *testing.T) (*os.File, *Serial) {
+	t.Helper()
 	link := filepath.Join(t.TempDir(), "tty")
 	master := openPty(t, link)
-	defer master.Close()
+	t.Cleanup(func() { master.Close() })
 	port, err := OpenSerial(fastSerial(link), zerolog.Nop())
 	if err != nil {
 		t.Fatal(err)
 	}
+	t.Cleanup(func() { port.Close() })
+	return master, port
+}
+
+// TestSerialBurst: a burst of 2000 lines written at once all arrive.
+func TestSerialBurst(t *testing.T) {
+	master, port := openedPty(t)
+	go func() {
+		for i := 0; i < 2000; i++ {
+			fmt.Fprintf(master, "%.2f,5.0,0.0\n", float64(i)/100)
+		}
+	}()
+	lines := readLines(port)
+	for i := 0; i < 2000; i++ {
+		select {
+		case <-lines:
+		case <-time.After(3 * time.Second):
+			t.Fatalf("got %d lines of 2000", i)
+		}
+	}
+}
+
+func TestSerialCloseUnblocksRead(t *testing.T) {
+	_, port := openedPty(t)
 	done := make(chan error)
 	go func() {
 		_, err := port.Read(make([]byte, 64))
