@@ -161,11 +161,15 @@ func TestPublishToEmbeddedBroker(t *testing.T) {
 	if err := pub.Close(ctx); err != nil {
 		t.Fatal(err)
 	}
+	var offline map[string]any
 	waitUntil(t, "offline status", func() bool {
-		var s map[string]any
-		json.Unmarshal(sub.last("breathd/bed9/status").Payload(), &s)
-		return s["state"] == "offline"
+		json.Unmarshal(sub.last("breathd/bed9/status").Payload(), &offline)
+		return offline["state"] == "offline"
 	})
+	// the offline status still carries the device's counters
+	if c, _ := offline["counters"].(map[string]any); c == nil || c["breaths"] != float64(st.Breaths) {
+		t.Errorf("offline counters %v, want %d breaths", offline["counters"], st.Breaths)
+	}
 }
 
 // TestAckAcknowledgesLatchingRule: an ack message on the device's ack topic

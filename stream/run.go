@@ -86,10 +86,12 @@ type Status struct {
 	Final     bool
 }
 
-// Control acknowledges a device's events from outside its loop.
+// Control acknowledges a device's events from outside its loop and reads
+// its counters, which it keeps after Run ends.
 type Control struct {
-	mu sync.Mutex
-	l  *loop
+	mu    sync.Mutex
+	l     *loop
+	final *Status // the counters when Run ended
 }
 
 // ErrNotRunning is returned by Control.Ack before Run starts or after it
@@ -116,10 +118,16 @@ func (c *Control) Ack(id string) error {
 	return err
 }
 
-// Status returns the device's counters now (zero before Run starts).
+// Status returns the device's counters now, or as they were when Run
+// ended (zero before it starts).
 func (c *Control) Status() Status {
 	l := c.running()
 	if l == nil {
+		c.mu.Lock()
+		defer c.mu.Unlock()
+		if c.final != nil {
+			return *c.final
+		}
 		return Status{}
 	}
 	return l.status()
@@ -174,8 +182,10 @@ func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
 		cfg.Control.l = l
 		cfg.Control.mu.Unlock()
 		defer func() {
+			st := l.status()
+			st.Final = true
 			cfg.Control.mu.Lock()
-			cfg.Control.l = nil
+			cfg.Control.l, cfg.Control.final = nil, &st
 			cfg.Control.mu.Unlock()
 		}()
 	}
