@@ -237,6 +237,23 @@ func kindName(k colKind, i int) string {
 	return fmt.Sprintf("x%d", i+1)
 }
 
+// wallAnchor is the mapping from stream time to wall-clock time in force.
+type wallAnchor struct {
+	ok   bool
+	wall time.Time
+	t    float64
+}
+
+func (d *Decoder) anchor() wallAnchor { return wallAnchor{d.hasWall, d.wall, d.wallT} }
+
+// at is the wall-clock time of stream time t under the anchor.
+func (a wallAnchor) at(t float64) (time.Time, bool) {
+	if !a.ok {
+		return time.Time{}, false
+	}
+	return a.wall.Add(time.Duration((t - a.t) * float64(time.Second))), true
+}
+
 // Wall returns the wall-clock time of stream time t, known once a clock
 // directive was followed by a sample.
 func (d *Decoder) Wall(t float64) (time.Time, bool) {

@@ -1,7 +1,10 @@
 package stream
 
 import (
+	"bytes"
 	"context"
+	"fmt"
+	"io"
 	"testing"
 	"time"
 
@@ -146,5 +149,49 @@ func TestSteadyRaisesNothing(t *testing.T) {
 	t.Logf("%.0f h, %d breaths, %d events", hours, len(truths), len(c.events))
 	for _, ev := range c.events {
 		t.Errorf("event %s %s at %.0f s value %.2f", ev.Rule, ev.Transition, ev.T, ev.Value)
+	}
+}
+
+// TestAheadSameAsInline: decoding in a goroutine of its own (analyze)
+// gives the same breaths and the same events, with the same wall-clock
+// times from the recording's clock directives, as the plain loop.
+func TestAheadSameAsInline(t *testing.T) {
+	sc := mechanics.Scenario{Seed: 12, RateHz: 100, Duration: 40 * time.Minute, Sensor: noise,
+		Settings: mechanics.Settings{Mode: mechanics.ModeVC, R: 10, C: 50, PEEP: 8, RR: 18, VT: 480, Ti: 1.0, Pause: 0.3},
+		Timeline: []mechanics.Change{{At: 5 * time.Minute, Ramp: 30 * time.Minute, Set: map[string]float64{"c": 28}}}}
+	sc.Defaults()
+	var raw bytes.Buffer
+	io.Copy(&raw, device.NewSim(sc, device.SimFormat{Header: true}, 0, nil))
+	// a clock directive every 6000 lines (a minute), as a recording has
+	var rec bytes.Buffer
+	start := time.Date(2026, 12, 1, 8, 0, 0, 0, time.UTC)
+	for i, line := range bytes.SplitAfter(raw.Bytes(), []byte("\n")) {
+		if i%6000 == 1 {
+			fmt.Fprintf(&rec, "# breathd clock %s\n", start.Add(time.Duration(i-1)*10*time.Millisecond).Format(time.RFC3339Nano))
+		}
+		rec.Write(line)
+	}
+	run := func(ahead bool) (*collect, Status) {
+		c := &collect{}
+		st, err := Run(context.Background(), io.NopCloser(bytes.NewReader(rec.Bytes())),
+			Config{Device: "d", Rules: alerts.Defaults(), Sink: c, Ahead: ahead})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return c, st
+	}
+	a, sa := run(false)
+	b, sb := run(true)
+	if sa.Breaths != sb.Breaths || sa.Counts.Samples != sb.Counts.Samples || len(a.events) != len(b.events) || len(a.events) == 0 {
+		t.Fatalf("inline %d breaths %d events, ahead %d breaths %d events", sa.Breaths, len(a.events), sb.Breaths, len(b.events))
+	}
+	for i := range a.events {
+		x, y := a.events[i], b.events[i]
+		if x.Rule != y.Rule || x.Transition != y.Transition || x.T != y.T || x.Value != y.Value || !x.At.Equal(y.At) {
+			t.Errorf("event %d: inline %+v, ahead %+v", i, x, y)
+		}
+	}
+	if want := start.Add(time.Duration(a.events[0].T * float64(time.Second))); a.events[0].At.Sub(want).Abs() > 20*time.Millisecond {
+		t.Errorf("event wall time %v, want about %v", a.events[0].At, want)
 	}
 }

@@ -65,7 +65,11 @@ type Config struct {
 	// Live says the source delivers in real time (a port, stdin, a paced
 	// replay): technical rules are then also evaluated on a wall-clock
 	// ticker, so that "no samples" is seen while nothing arrives.
-	Live  bool
+	Live bool
+	// Ahead decodes in a goroutine of its own, handing batches of samples
+	// to the analysis, for a recording read as fast as possible on a
+	// machine with a second core. Ignored for live or paced sources.
+	Ahead bool
 	Every time.Duration // how often Report is called while running; default 5 s
 	// Report, if set, is called every Every from a separate goroutine and
 	// once more, with Final set, when Run ends.
@@ -177,6 +181,9 @@ func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
 	if p, ok := src.(device.Paced); ok {
 		l.pacer = p.Pacer()
 	}
+	if cfg.Ahead && !cfg.Live && (l.pacer == nil || l.pacer.Speed <= 0) {
+		l.aheadOn, l.pacer, l.ahead = true, nil, &batch{}
+	}
 	if cfg.Control != nil {
 		cfg.Control.mu.Lock()
 		cfg.Control.l = l
@@ -203,7 +210,11 @@ func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
 	if cfg.Live {
 		wg.Go(func() { l.wallTicks(done) })
 	}
-	err = l.run(ctx)
+	if l.aheadOn {
+		err = l.runAhead(ctx)
+	} else {
+		err = l.run(ctx)
+	}
 	close(done)
 	wg.Wait()
 	src.Close()
@@ -239,6 +250,11 @@ type loop struct {
 	eng   *alerts.Engine
 	lastT float64 // stream time of the latest sample, s
 	nEv   int64
+
+	// ahead is the batch being analysed when decoding runs ahead (nil
+	// otherwise): its counters and clock stand for the decoder's
+	ahead   *batch
+	aheadOn bool // set before decoding starts
 
 	mu    sync.Mutex // guards the snapshot
 	snap  Counts
@@ -284,6 +300,92 @@ func (l *loop) run(ctx context.Context) error {
 	}
 }
 
+// batch is a run of decoded samples handed from the decoding goroutine to
+// the analysis (Config.Ahead), with the decoder's counters after it and
+// the wall-clock anchor in force for all of its samples.
+type batch struct {
+	s      []Sample
+	counts Counts
+	wall   wallAnchor
+	err    error
+}
+
+// batchSize is the samples a batch holds: 41 s at 100 Hz.
+const batchSize = 4096
+
+// runAhead is run with decoding in a goroutine of its own. The analysis
+// of each sample is the same as in run; only the counters and the clock
+// are taken from the batch.
+func (l *loop) runAhead(ctx context.Context) error {
+	full := make(chan *batch, 2)
+	free := make(chan *batch, 3)
+	for range 3 {
+		free <- &batch{s: make([]Sample, 0, batchSize)}
+	}
+	go l.decodeAhead(full, free)
+	var err error
+	for b := range full {
+		l.ahead = b
+		for i := range b.s {
+			s := &b.s[i]
+			if br := l.seg.Add(s.T, s.Paw, s.Flow, s.Gap); br != nil {
+				l.breath(br)
+			}
+			if s.T >= l.nextTick || s.Gap {
+				l.tick(s)
+			}
+			l.prevT = s.T
+		}
+		l.snapshot()
+		if b.err != nil {
+			err = b.err
+			continue // the decoder closes full after the last batch
+		}
+		free <- b
+	}
+	var le *LineError
+	switch {
+	case err == nil, errors.Is(err, io.EOF), ctx.Err() != nil, errors.As(err, &le):
+		return nil
+	}
+	var fe *FormatError
+	if errors.As(err, &fe) {
+		return fmt.Errorf("%s: cannot decode the stream: %w", l.cfg.Device, err)
+	}
+	return fmt.Errorf("%s: read: %w", l.cfg.Device, err)
+}
+
+// decodeAhead fills batches until the stream ends; a batch ends early
+// when a clock directive changes the wall-clock anchor.
+func (l *loop) decodeAhead(full, free chan *batch) {
+	defer close(full)
+	b := <-free
+	b.s = b.s[:0]
+	var s Sample
+	for {
+		err := l.dec.Decode(&s)
+		var le *LineError
+		if errors.As(err, &le) {
+			l.badLine(le)
+			continue
+		}
+		if err != nil {
+			b.counts, b.err = l.dec.counts, err
+			full <- b
+			return
+		}
+		if a := l.dec.anchor(); len(b.s) == 0 {
+			b.wall = a
+		} else if a != b.wall || len(b.s) == batchSize {
+			b.counts = l.dec.counts
+			full <- b
+			b = <-free
+			b.s, b.wall, b.err = b.s[:0], a, nil
+		}
+		b.s = append(b.s, s)
+	}
+}
+
 func (l *loop) breath(b *mechanics.Breath) {
 	l.win.Add(b)
 	l.lastBreathT = b.TEnd
@@ -299,10 +401,24 @@ func (l *loop) breath(b *mechanics.Breath) {
 // wall is the wall-clock time of stream time t: from the recording's clock
 // directives when it has them, else now.
 func (l *loop) wall(t float64) time.Time {
-	if w, ok := l.dec.Wall(t); ok {
+	var a wallAnchor
+	if l.ahead != nil {
+		a = l.ahead.wall // decoding ahead: the decoder belongs to its goroutine
+	} else {
+		a = l.dec.anchor()
+	}
+	if w, ok := a.at(t); ok {
 		return w
 	}
 	return time.Now()
+}
+
+// counts are the decoder's counters as of the sample being analysed.
+func (l *loop) counts() *Counts {
+	if l.ahead != nil {
+		return &l.ahead.counts
+	}
+	return &l.dec.counts
 }
 
 // deliver passes events to the sink; emu is held.
@@ -322,7 +438,7 @@ func (l *loop) deliver(evs []alerts.Event) {
 
 // tick evaluates the technical rules in stream time.
 func (l *loop) tick(s *Sample) {
-	c := &l.dec.counts
+	c := l.counts()
 	l.ticks++
 	l.nextTick = s.T + tickEvery
 	tech := alerts.Unknown()
@@ -422,7 +538,9 @@ func (l *loop) badLine(le *LineError) {
 type snapReader struct{ l *loop }
 
 func (r snapReader) Read(p []byte) (int, error) {
-	r.l.snapshot()
+	if !r.l.aheadOn {
+		r.l.snapshot() // decoding ahead, the analysis snapshots after each batch
+	}
 	return r.l.src.Read(p)
 }
 
@@ -431,7 +549,7 @@ func (l *loop) snapshot() {
 	ev := l.nEv
 	l.emu.Unlock()
 	l.mu.Lock()
-	l.snap = l.dec.counts
+	l.snap = *l.counts()
 	l.snapB, l.snapD, l.snapE = l.seg.Breaths(), l.seg.Drops(), ev
 	l.mu.Unlock()
 }

@@ -10,6 +10,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"runtime"
 	"slices"
 	"strings"
 	"time"
@@ -97,7 +98,7 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	stopBar := showProgress(file, stderr)
 	start := time.Now()
 	st, runErr := stream.Run(ctx, src, stream.Config{Device: idFromPath(path), Format: f, Mechanics: mcfg,
-		Rules: alerts.Defaults(), Sink: sinks})
+		Rules: alerts.Defaults(), Sink: sinks, Ahead: runtime.NumCPU() > 1})
 	stopBar()
 	if csv != nil {
 		if err := csv.Flush(); err != nil && runErr == nil {
