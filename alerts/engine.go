@@ -335,6 +335,3 @@ func (e *Engine) Active() []Active {
 	}
 	return out
 }
-
-// NeedsTrend reports whether some rule watches the rolling window.
-func (e *Engine) NeedsTrend() bool { return e.trend }

@@ -102,6 +102,12 @@ func (r *Recorder) Close() error {
 	return err
 }
 
+// SetHeader replaces the format directive written at the top of each new
+// file, e.g. with the format as decoded so far (columns from the stream's
+// header, the delimiter detected). It must be called before reading or
+// from the reading goroutine.
+func (r *Recorder) SetHeader(h func() string) { r.cfg.Header = h }
+
 // WriteErrors is the number of writes that failed.
 func (r *Recorder) WriteErrors() int64 { return r.writeErrs.Load() }
 

@@ -85,8 +85,9 @@ func TestWorkedExampleVolumeControl(t *testing.T) {
 
 // TestMechanicalPowerFormulasAgree is worked example 2: for a constant-flow
 // breath without a pause the simplified and the full formula agree, 22.05
-// J/min (Gattinoni 2016). Example 1 at RR 20, Ti 0.5 s, I:E 0.2 (as
-// inspiratory/expiratory... the full formula's I:E), E 30 cmH2O/L.
+// J/min (Gattinoni et al., Intensive Care Med 2016;42:1567). Example 1 at
+// RR 20: VT 0.5 L, E 30 cmH2O/L, R 10 cmH2O·s/L, PEEP 5, I:E 0.2 as the
+// full formula takes it (inspiratory over expiratory time).
 func TestMechanicalPowerFormulasAgree(t *testing.T) {
 	simple := MechanicalPower(20, 500, 30, 15)
 	full := MechanicalPowerFull(20, 0.5, 30, 10, 0.2, 5)

@@ -137,15 +137,10 @@ func (c *Control) Status() Status {
 	return l.status()
 }
 
-// Active returns the rules raised now.
-func (c *Control) Active() []alerts.Active {
-	l := c.running()
-	if l == nil {
-		return nil
-	}
-	l.emu.Lock()
-	defer l.emu.Unlock()
-	return l.eng.Active()
+// headerSetter is a source that records (device.Recorder): it is told how
+// to describe the stream once the decoder has seen its header.
+type headerSetter interface {
+	SetHeader(func() string)
 }
 
 // tickEvery is how often technical rules are evaluated, in stream time and
@@ -175,6 +170,10 @@ func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
 		return Status{Device: cfg.Device}, err
 	}
 	l.dec = dec
+	if h, ok := src.(headerSetter); ok {
+		// a recording's later files start with the format as decoded, header included
+		h.SetHeader(func() string { return dec.Format().Directive() })
+	}
 	if es, ok := cfg.Sink.(EventSink); ok {
 		l.events = es
 	}
