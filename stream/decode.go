@@ -149,10 +149,15 @@ type Decoder struct {
 	ncols    int
 	hasT     bool
 	hasVol   bool
-	scale    [5]float64 // by colKind
-	rateHz   float64
-	gapLimit float64 // s
-	fatal    error
+	// plain: every column is one we use, and the delimiter is not runs
+	// of blanks; the batch path takes only such lines (plainKinds are
+	// their kinds)
+	plain      bool
+	plainKinds [8]colKind
+	scale      [5]float64 // by colKind
+	rateHz     float64
+	gapLimit   float64 // s
+	fatal      error
 
 	index    int64 // data lines seen, for streams without t
 	haveLast bool
@@ -466,6 +471,11 @@ func (d *Decoder) resolve(line []byte) (header bool, err error) {
 		}
 	}
 	d.scale[kindFlow] *= sign
+	d.plain = d.delim != ' ' && d.ncols <= 5
+	for i := 0; i < d.ncols && d.plain; i++ {
+		d.plainKinds[i] = d.kinds[i]
+		d.plain = d.kinds[i] != kindIgnore
+	}
 	d.resolved = true
 	return !numeric, nil
 }

@@ -427,12 +427,19 @@ func FuzzDecode(f *testing.F) {
 		if (ea == nil) != (eb == nil) || len(a) != len(b) || ca.Bad != cb.Bad {
 			t.Fatalf("fast path %d samples %v %v, general path %d samples %v %v", len(a), ca.Bad, ea, len(b), cb.Bad, eb)
 		}
-		for i := range a {
-			if math.Float64bits(a[i].T) != math.Float64bits(b[i].T) || math.Float64bits(a[i].Paw) != math.Float64bits(b[i].Paw) ||
-				math.Float64bits(a[i].Flow) != math.Float64bits(b[i].Flow) || a[i].Gap != b[i].Gap {
-				t.Fatalf("sample %d: fast %+v, general %+v", i, a[i], b[i])
-			}
+		sameSamples(t, "one-pass fast path against the general path", a, b)
+		// and so does the batch path, on the input repeated until it
+		// fills a batch window many times over
+		rep := bytes.Repeat(data, 1+4*batchWindow/(len(data)+1))
+		slow, _ = NewDecoder(bytes.NewReader(rep), Format{Delimiter: delim})
+		slow.noFast = true
+		batch, _ := NewDecoder(bytes.NewReader(rep), Format{Delimiter: delim})
+		a, ca, ea = drainBatch(batch, 7)
+		b, cb, eb = drain(slow)
+		if (ea == nil) != (eb == nil) || ca != cb {
+			t.Fatalf("batch path %d samples %+v %v, general path %d samples %+v %v", len(a), ca, ea, len(b), cb, eb)
 		}
+		sameSamples(t, "batch path against the general path", a, b)
 	})
 }
 
@@ -462,9 +469,30 @@ func GenerateLines(n int, rateHz float64) []byte {
 	return b
 }
 
-// BenchmarkDecode decodes the day-long stream; one op is one line, so
-// allocs/op is the per-line allocation.
+// BenchmarkDecode decodes the day-long stream the way the device loop
+// does, in batches (DecodeBatch); one op is one line, so allocs/op is the
+// per-line allocation.
 func BenchmarkDecode(b *testing.B) {
+	data := dayStream()
+	r := bytes.NewReader(data)
+	d, _ := NewDecoder(r, Format{})
+	var s [batchSize]Sample
+	b.SetBytes(int64(len(data)) / (24 * 3600 * 100))
+	b.ReportAllocs()
+	b.ResetTimer()
+	for left := b.N; left > 0; {
+		n, err := d.DecodeBatch(s[:min(left, len(s))])
+		left -= n
+		if err == io.EOF {
+			r.Reset(data)
+			d.Reset(r)
+		}
+	}
+	b.ReportMetric(float64(b.N)/b.Elapsed().Seconds(), "lines/s")
+}
+
+// BenchmarkDecodeLine decodes the same stream one line per call (Decode).
+func BenchmarkDecodeLine(b *testing.B) {
 	data := dayStream()
 	r := bytes.NewReader(data)
 	d, _ := NewDecoder(r, Format{})

@@ -263,40 +263,55 @@ type loop struct {
 }
 
 func (l *loop) run(ctx context.Context) error {
-	var s Sample
-	for {
-		err := l.dec.Decode(&s)
-		if err != nil {
-			var le *LineError
-			switch {
-			case errors.As(err, &le):
-				l.badLine(le)
-				continue
-			case errors.Is(err, io.EOF), ctx.Err() != nil:
-				l.snapshot()
-				return nil
-			}
-			l.snapshot()
-			var fe *FormatError
-			if errors.As(err, &fe) {
-				return fmt.Errorf("%s: cannot decode the stream: %w", l.cfg.Device, err)
-			}
-			return fmt.Errorf("%s: read: %w", l.cfg.Device, err)
-		}
-		if l.pacer != nil {
-			if l.pacer.Wait(ctx, s.T) != nil {
-				l.snapshot()
-				return nil
-			}
-		}
-		if b := l.seg.Add(s.T, s.Paw, s.Flow, s.Gap); b != nil {
-			l.breath(b)
-		}
-		if s.T >= l.nextTick || s.Gap {
-			l.tick(&s)
-		}
-		l.prevT = s.T
+	var samples [runBatch]Sample
+	size := len(samples)
+	if l.pacer != nil {
+		size = 1 // the counters then never run ahead of the pacing
 	}
+	for {
+		n, err := l.dec.DecodeBatch(samples[:size])
+		for i := range samples[:n] {
+			s := &samples[i]
+			if l.pacer != nil && l.pacer.Wait(ctx, s.T) != nil {
+				l.snapshot()
+				return nil
+			}
+			l.sample(s)
+		}
+		if err == nil {
+			continue
+		}
+		var le *LineError
+		switch {
+		case errors.As(err, &le):
+			l.badLine(le)
+			continue
+		case errors.Is(err, io.EOF), ctx.Err() != nil:
+			l.snapshot()
+			return nil
+		}
+		l.snapshot()
+		var fe *FormatError
+		if errors.As(err, &fe) {
+			return fmt.Errorf("%s: cannot decode the stream: %w", l.cfg.Device, err)
+		}
+		return fmt.Errorf("%s: read: %w", l.cfg.Device, err)
+	}
+}
+
+// runBatch is the samples run decodes at a time: on a live source, the
+// ones already read.
+const runBatch = 256
+
+// sample is the analysis of one sample.
+func (l *loop) sample(s *Sample) {
+	if b := l.seg.Add(s.T, s.Paw, s.Flow, s.Gap); b != nil {
+		l.breath(b)
+	}
+	if s.T >= l.nextTick || s.Gap {
+		l.tick(s)
+	}
+	l.prevT = s.T
 }
 
 // batch is a run of decoded samples handed from the decoding goroutine to
@@ -326,14 +341,7 @@ func (l *loop) runAhead(ctx context.Context) error {
 	for b := range full {
 		l.ahead = b
 		for i := range b.s {
-			s := &b.s[i]
-			if br := l.seg.Add(s.T, s.Paw, s.Flow, s.Gap); br != nil {
-				l.breath(br)
-			}
-			if s.T >= l.nextTick || s.Gap {
-				l.tick(s)
-			}
-			l.prevT = s.T
+			l.sample(&b.s[i])
 		}
 		l.snapshot()
 		if b.err != nil {
@@ -360,9 +368,22 @@ func (l *loop) decodeAhead(full, free chan *batch) {
 	defer close(full)
 	b := <-free
 	b.s = b.s[:0]
-	var s Sample
 	for {
-		err := l.dec.Decode(&s)
+		// A clock directive can only come before the first sample of a
+		// DecodeBatch; a batch is sent before a call that may meet one,
+		// so that its samples share one wall-clock anchor.
+		if len(b.s) > 0 && (len(b.s) == cap(b.s) || !l.dec.plainLineNext()) {
+			b.counts = l.dec.counts
+			full <- b
+			b = <-free
+			b.s, b.err = b.s[:0], nil
+		}
+		k := len(b.s)
+		n, err := l.dec.DecodeBatch(b.s[k:cap(b.s)])
+		if k == 0 {
+			b.wall = l.dec.anchor()
+		}
+		b.s = b.s[:k+n]
 		var le *LineError
 		if errors.As(err, &le) {
 			l.badLine(le)
@@ -373,15 +394,6 @@ func (l *loop) decodeAhead(full, free chan *batch) {
 			full <- b
 			return
 		}
-		if a := l.dec.anchor(); len(b.s) == 0 {
-			b.wall = a
-		} else if a != b.wall || len(b.s) == batchSize {
-			b.counts = l.dec.counts
-			full <- b
-			b = <-free
-			b.s, b.wall, b.err = b.s[:0], a, nil
-		}
-		b.s = append(b.s, s)
 	}
 }
 
