@@ -111,6 +111,7 @@ type Segmenter struct {
 	drops     Drops
 	out       Breath
 	scratch   []float64 // for the stress-index fit
+	lastSI    float64   // the previous stress index, where its fit starts; NaN for none
 }
 
 // NewSegmenter returns a segmenter for samples arriving at about rateHz
@@ -125,7 +126,7 @@ func NewSegmenter(cfg Config, rateHz float64) (*Segmenter, error) {
 	}
 	size := int(math.Min(math.Max(cfg.MaxBreath*rateHz*1.5, 1024), 1<<18))
 	s := &Segmenter{cfg: cfg, t: make([]float64, size), paw: make([]float64, size), flow: make([]float64, size),
-		scratch: make([]float64, 0, size), openSince: math.NaN(), lastPEEP: math.NaN()}
+		scratch: make([]float64, 0, size), openSince: math.NaN(), lastPEEP: math.NaN(), lastSI: math.NaN()}
 	if cfg.Sex != "" {
 		s.pbw, _ = PredictedBodyWeight(cfg.Sex, cfg.HeightCm)
 	}

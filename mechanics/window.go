@@ -135,6 +135,7 @@ type Window struct {
 	hN      int
 	scratch []float64
 	idx     []int
+	parts   []part // the window's breaths' parts, for the attribution
 	trend   Trend
 	base    baseline // cached: the baseline moves slowly
 	last    float64  // the latest breath's end, s
@@ -168,6 +169,7 @@ func NewWindow(cfg WindowConfig) (*Window, error) {
 	w.trend.stats = make([]Stat, len(Fields))
 	w.trend.w = w
 	w.idx = make([]int, 0, cfg.Breaths)
+	w.parts = make([]part, 0, cfg.Breaths)
 	w.base.at = nan
 	return w, nil
 }
@@ -235,7 +237,7 @@ func summarize(x []float64) Stat {
 	if len(x) == 0 {
 		return Stat{Median: nan, Q1: nan, Q3: nan}
 	}
-	slices.Sort(x)
+	sortSmall(x)
 	return Stat{Median: quantile(x, 0.5), Q1: quantile(x, 0.25), Q3: quantile(x, 0.75), N: len(x)}
 }
 
@@ -342,15 +344,28 @@ func partCstat(p part) float64 { return p.cstat }
 func partFitC(p part) float64  { return p.fitC }
 
 // current is the median of one part over the window's breaths.
-func (w *Window) current(idx []int, get func(p part) float64) (float64, int) {
+func (w *Window) current(parts []part, get func(p part) float64) (float64, int) {
 	x := w.scratch[:0]
-	for _, slot := range idx {
-		if v := get(partOf(w.ring[slot], w.flags[slot])); !math.IsNaN(v) {
+	for _, p := range parts {
+		if v := get(p); !math.IsNaN(v) {
 			x = append(x, v)
 		}
 	}
 	s := summarize(x)
 	return s.Median, s.N
+}
+
+// windowParts gathers the parts of the window's breaths (the slots of
+// idx, which are the latest entries of the history), oldest first.
+func (w *Window) windowParts(idx []int) []part {
+	parts := w.parts[:0]
+	for k := min(w.n, w.hN); k >= 1; k-- {
+		p := w.hist[(w.hHead-k+len(w.hist))%len(w.hist)]
+		if len(parts) < len(idx) && p.t == w.ring[idx[len(parts)]][0] {
+			parts = append(parts, p)
+		}
+	}
+	return parts
 }
 
 var (
@@ -387,26 +402,27 @@ func (w *Window) attribute(now float64, idx []int) Attribution {
 		b.cstat, b.nCstat = w.median(baseFrom, winFrom, partCstat)
 		b.fitC, b.nFit = w.median(baseFrom, winFrom, partFitC)
 	}
+	parts := w.windowParts(idx)
 	w.trend.CChange = nan
-	if c, n := w.current(idx, partCstat); n >= 3 && b.nCstat >= 3 {
+	if c, n := w.current(parts, partCstat); n >= 3 && b.nCstat >= 3 {
 		w.trend.CChange = (c - b.cstat) / b.cstat * 100
-	} else if c, n := w.current(idx, partFitC); n >= 3 && b.nFit >= 3 {
+	} else if c, n := w.current(parts, partFitC); n >= 3 && b.nFit >= 3 {
 		w.trend.CChange = (c - b.fitC) / b.fitC * 100
 	}
-	curPeak, nc := w.current(idx, partPeak)
+	curPeak, nc := w.current(parts, partPeak)
 	a := Attribution{Cause: RiseNone, PeakRise: nan, ResistiveRise: nan, ElasticRise: nan, BaselineBreaths: b.nPeak}
 	if b.nPeak < 3 || nc < 3 {
 		return a
 	}
 	a.PeakRise = curPeak - b.peak
 	a.Method = "plateau"
-	rc, n := w.current(idx, partRes)
-	ec, _ := w.current(idx, partEl)
+	rc, n := w.current(parts, partRes)
+	ec, _ := w.current(parts, partEl)
 	rb, eb := b.res, b.el
 	if b.nRes < 3 || n < 3 {
 		a.Method = "fit"
-		rc, n = w.current(idx, partFres)
-		ec, _ = w.current(idx, partFel)
+		rc, n = w.current(parts, partFres)
+		ec, _ = w.current(parts, partFel)
 		rb, eb = b.fres, b.fel
 		if b.nFres < 3 || n < 3 {
 			a.Method = ""
@@ -428,4 +444,21 @@ func (w *Window) attribute(now float64, idx []int) Attribution {
 		a.Cause = RiseBoth
 	}
 	return a
+}
+
+// sortSmall sorts x: by insertion for a window's few values (no call per
+// comparison), else by slices.Sort.
+func sortSmall(x []float64) {
+	if len(x) > 32 {
+		slices.Sort(x)
+		return
+	}
+	for i := 1; i < len(x); i++ {
+		v := x[i]
+		j := i
+		for ; j > 0 && x[j-1] > v; j-- {
+			x[j] = x[j-1]
+		}
+		x[j] = v
+	}
 }
