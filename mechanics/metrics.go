@@ -474,7 +474,9 @@ func siNewton(lt, py []float64, b0 float64) (float64, bool) {
 		if b < 0.2 || b > 5 || math.IsNaN(b) {
 			return nan, false
 		}
-		if math.Abs(step) < 1e-7 {
+		if math.Abs(step) < 1e-3 {
+			// Newton's error squares at each step: one this small
+			// leaves about its square, under 1e-6
 			return b, true
 		}
 	}

@@ -135,7 +135,7 @@ type Window struct {
 	hN      int
 	scratch []float64
 	idx     []int
-	parts   []part // the window's breaths' parts, for the attribution
+	parts   []part // the window's or the baseline's breaths' parts
 	trend   Trend
 	base    baseline // cached: the baseline moves slowly
 	last    float64  // the latest breath's end, s
@@ -169,7 +169,7 @@ func NewWindow(cfg WindowConfig) (*Window, error) {
 	w.trend.stats = make([]Stat, len(Fields))
 	w.trend.w = w
 	w.idx = make([]int, 0, cfg.Breaths)
-	w.parts = make([]part, 0, cfg.Breaths)
+	w.parts = make([]part, 0, hcap)
 	w.base.at = nan
 	return w, nil
 }
@@ -317,22 +317,19 @@ func (w *Window) remember(b *Breath) {
 	w.hN = min(w.hN+1, len(w.hist))
 }
 
-// median of one part of the breaths that started in [from, to).
-func (w *Window) median(from, to float64, get func(p part) float64) (float64, int) {
-	x := w.scratch[:0]
+// baseParts gathers the parts of the breaths that started in [from, to).
+func (w *Window) baseParts(from, to float64) []part {
+	parts := w.parts[:0]
 	for k := 1; k <= w.hN; k++ {
 		p := w.hist[(w.hHead-k+len(w.hist))%len(w.hist)]
 		if p.t < from {
 			break // older ones follow
 		}
 		if p.t < to {
-			if v := get(p); !math.IsNaN(v) {
-				x = append(x, v)
-			}
+			parts = append(parts, p)
 		}
 	}
-	s := summarize(x)
-	return s.Median, s.N
+	return parts
 }
 
 func partPeak(p part) float64  { return p.peak }
@@ -343,7 +340,7 @@ func partFel(p part) float64   { return p.fitEl }
 func partCstat(p part) float64 { return p.cstat }
 func partFitC(p part) float64  { return p.fitC }
 
-// current is the median of one part over the window's breaths.
+// current is the median of one part over parts.
 func (w *Window) current(parts []part, get func(p part) float64) (float64, int) {
 	x := w.scratch[:0]
 	for _, p := range parts {
@@ -351,8 +348,7 @@ func (w *Window) current(parts []part, get func(p part) float64) (float64, int) 
 			x = append(x, v)
 		}
 	}
-	s := summarize(x)
-	return s.Median, s.N
+	return medianOf(x), len(x)
 }
 
 // windowParts gathers the parts of the window's breaths (the slots of
@@ -394,13 +390,14 @@ func (w *Window) attribute(now float64, idx []int) Attribution {
 	b := &w.base
 	if math.IsNaN(b.at) || now-b.at >= 300 || now < b.at {
 		b.at = now
-		b.peak, b.nPeak = w.median(baseFrom, winFrom, partPeak)
-		b.res, b.nRes = w.median(baseFrom, winFrom, partRes)
-		b.el, _ = w.median(baseFrom, winFrom, partEl)
-		b.fres, b.nFres = w.median(baseFrom, winFrom, partFres)
-		b.fel, _ = w.median(baseFrom, winFrom, partFel)
-		b.cstat, b.nCstat = w.median(baseFrom, winFrom, partCstat)
-		b.fitC, b.nFit = w.median(baseFrom, winFrom, partFitC)
+		base := w.baseParts(baseFrom, winFrom)
+		b.peak, b.nPeak = w.current(base, partPeak)
+		b.res, b.nRes = w.current(base, partRes)
+		b.el, _ = w.current(base, partEl)
+		b.fres, b.nFres = w.current(base, partFres)
+		b.fel, _ = w.current(base, partFel)
+		b.cstat, b.nCstat = w.current(base, partCstat)
+		b.fitC, b.nFit = w.current(base, partFitC)
 	}
 	parts := w.windowParts(idx)
 	w.trend.CChange = nan
@@ -461,4 +458,66 @@ func sortSmall(x []float64) {
 		}
 		x[j] = v
 	}
+}
+
+// medianOf is the median of x (NaN when empty), as summarize gives it,
+// found by selection rather than a sort (Hoare's FIND, CACM 1961;4:321):
+// x is reordered.
+func medianOf(x []float64) float64 {
+	n := len(x)
+	if n <= 32 {
+		if n == 0 {
+			return nan
+		}
+		sortSmall(x)
+		return quantile(x, 0.5)
+	}
+	hi := selectKth(x, n/2)
+	if n%2 == 1 {
+		return hi
+	}
+	return (slices.Max(x[:n/2]) + hi) / 2 // the lower middle is the largest below
+}
+
+// selectKth reorders x so that x[k] is the value a sort would put there,
+// with none larger before it and none smaller after it, and returns it.
+func selectKth(x []float64, k int) float64 {
+	lo, hi := 0, len(x)-1
+	for hi > lo {
+		// the median of three as the pivot, then Hoare's partition
+		mid := lo + (hi-lo)/2
+		if x[mid] < x[lo] {
+			x[mid], x[lo] = x[lo], x[mid]
+		}
+		if x[hi] < x[lo] {
+			x[hi], x[lo] = x[lo], x[hi]
+		}
+		if x[hi] < x[mid] {
+			x[hi], x[mid] = x[mid], x[hi]
+		}
+		p := x[mid]
+		i, j := lo, hi
+		for i <= j {
+			for x[i] < p {
+				i++
+			}
+			for x[j] > p {
+				j--
+			}
+			if i <= j {
+				x[i], x[j] = x[j], x[i]
+				i++
+				j--
+			}
+		}
+		switch {
+		case k <= j:
+			hi = j
+		case k >= i:
+			lo = i
+		default:
+			return x[k]
+		}
+	}
+	return x[k]
 }

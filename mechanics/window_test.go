@@ -2,8 +2,12 @@ package mechanics
 
 import (
 	"math"
+	"math/rand/v2"
+	"slices"
 	"testing"
 	"time"
+
+	"gonum.org/v1/gonum/stat"
 )
 
 func TestWindowStatsAndLimits(t *testing.T) {
@@ -152,5 +156,33 @@ func TestNetFlowShowsDrift(t *testing.T) {
 	// the window holds the last 20 breaths (about 80 s): the drift then is 2.2–3 L/min
 	if nf := w.Trend().NetFlow; nf < 2 || nf > 3.2 {
 		t.Errorf("net flow %.2f L/min, want the drift of about 2.6", nf)
+	}
+}
+
+// TestMedianOfAgainstSort: selection gives the median a full sort gives
+// (gonum's stat.Quantile on the sorted values, the empirical median with
+// the two middle values averaged, as the reference library), on random
+// sets of every size to 200, ties included.
+func TestMedianOfAgainstSort(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 8))
+	for n := 1; n <= 200; n++ {
+		for range 20 {
+			x := make([]float64, n)
+			for i := range x {
+				x[i] = math.Round(rng.NormFloat64() * 5) // ties
+			}
+			s := slices.Clone(x)
+			slices.Sort(s)
+			want := s[(n-1)/2]
+			if n%2 == 0 {
+				want = (s[n/2-1] + s[n/2]) / 2
+			}
+			if lo := stat.Quantile(0.5, stat.Empirical, s, nil); n%2 == 1 && lo != want {
+				t.Fatalf("n %d: gonum median %g, sorted middle %g", n, lo, want)
+			}
+			if got := medianOf(x); got != want {
+				t.Fatalf("n %d: median %g, want %g", n, got, want)
+			}
+		}
 	}
 }
