@@ -24,23 +24,25 @@ func (s *Segmenter) compute(b *Breath, j int) {
 	// interval of its own flow — unbiased when breaths are not aligned with
 	// the sampling.
 	var vin, vex, pint float64
-	for i := 0; i < j; i++ {
+	dt := t[1] - t[0]
+	vin += flow[0] * dt / 2 // the half interval before the first sample
+	vin += (flow[0] + flow[1]) / 2 * dt
+	for i := 1; i < e-1; i++ {
+		vin += (flow[i] + flow[i+1]) / 2 * (t[i+1] - t[i])
+	}
+	if i := e - 1; i >= 1 {
 		dt := t[i+1] - t[i]
-		switch {
-		case i == 0:
-			vin += flow[0] * dt / 2 // the half interval before the first sample
-			fallthrough
-		case i < e-1:
-			vin += (flow[i] + flow[i+1]) / 2 * dt
-		case i == e-1:
-			vin += flow[i] * dt / 2
-			vex -= flow[i+1] * dt / 2
-		case i < j-1:
-			vex -= (flow[i] + flow[i+1]) / 2 * dt
-		default:
-			vex -= flow[i] * dt / 2
-		}
-		pint += paw[i] * dt
+		vin += flow[i] * dt / 2
+		vex -= flow[i+1] * dt / 2
+	}
+	for i := max(e, 1); i < j-1; i++ {
+		vex -= (flow[i] + flow[i+1]) / 2 * (t[i+1] - t[i])
+	}
+	if i := j - 1; i >= e {
+		vex -= flow[i] * (t[i+1] - t[i]) / 2
+	}
+	for i := 0; i < j; i++ {
+		pint += paw[i] * (t[i+1] - t[i])
 	}
 	b.VTi, b.VTe = vin/60*1000, vex/60*1000
 	b.Leak = nan
@@ -184,16 +186,25 @@ func (s *Segmenter) constantFlow(lo, end int) (bool, float64) {
 	return mean > s.cfg.StartFlow && sd < 0.1*mean, last / float64(k)
 }
 
-// smoothedMax is the largest 3-sample moving average of x over [lo, hi).
+// smoothedMax is the largest 3-sample moving average of x over [lo, hi)
+// (2 samples at each end).
 func smoothedMax(x []float64, lo, hi int) float64 {
-	best := math.Inf(-1)
-	for i := lo; i < hi; i++ {
-		a, z := max(i-1, lo), min(i+1, hi-1)
-		var sum float64
-		for k := a; k <= z; k++ {
-			sum += x[k]
+	if hi-lo < 3 {
+		best := math.Inf(-1)
+		for i := lo; i < hi; i++ {
+			a, z := max(i-1, lo), min(i+1, hi-1)
+			var sum float64
+			for k := a; k <= z; k++ {
+				sum += x[k]
+			}
+			best = max(best, sum/float64(z-a+1))
 		}
-		best = math.Max(best, sum/float64(z-a+1))
+		return best
+	}
+	best := max((x[lo]+x[lo+1])/2, (x[hi-2]+x[hi-1])/2)
+	x = x[lo:hi]
+	for i := 1; i+1 < len(x); i++ {
+		best = max(best, (x[i-1]+x[i]+x[i+1])/3)
 	}
 	return best
 }
@@ -265,9 +276,13 @@ func (s *Segmenter) plateau(from, e int) float64 {
 // over 3 samples so that noise alone does not qualify.
 func (s *Segmenter) triggerDip(e, j int) bool {
 	tEnd := s.t[j]
+	from := j // the first sample of the last 0.6 s
+	for from > e && tEnd-s.t[from-1] <= 0.6 {
+		from--
+	}
 	var ref float64
 	n := 0
-	for i := e; i < j; i++ {
+	for i := from; i < j; i++ {
 		if d := tEnd - s.t[i]; d > 0.3 && d <= 0.6 {
 			ref += s.paw[i]
 			n++
@@ -277,7 +292,7 @@ func (s *Segmenter) triggerDip(e, j int) bool {
 		return false
 	}
 	ref /= float64(n)
-	for i := e + 1; i+1 < j; i++ {
+	for i := max(e+1, from); i+1 < j; i++ {
 		if tEnd-s.t[i] > 0.3 {
 			continue
 		}
@@ -313,32 +328,27 @@ func (s *Segmenter) patientStart(e int) bool {
 // fit solves Paw = R·V' + E·V + P0 by least squares over the breath's
 // samples [0, j), with V' in L/s and V in L integrated by the trapezoid
 // rule from the breath's start, and fills fit_r, fit_c, fit_p0, fit_r2 and
-// tau. The sums are centred for accuracy.
+// tau. One pass takes the sums about a reference point (the first
+// sample's flow and pressure, volume 0), which keeps them as accurate as
+// centred ones for a breath's few hundred samples; the centred sums
+// follow from them.
 func (s *Segmenter) fit(b *Breath, j int) {
 	b.FitR, b.FitC, b.FitP0, b.FitR2, b.Tau = nan, nan, nan, nan, nan
 	if j < 8 {
 		return
 	}
-	t, paw, flow := s.t, s.paw, s.flow
-	// means
-	var mx1, mx2, my, v float64
-	for i := 0; i < j; i++ {
-		if i > 0 {
-			v += (flow[i-1] + flow[i]) / 2 / 60 * (t[i] - t[i-1])
-		}
-		mx1 += flow[i] / 60
-		mx2 += v
-		my += paw[i]
-	}
-	n := float64(j)
-	mx1, mx2, my = mx1/n, mx2/n, my/n
-	var s11, s12, s22, s1y, s2y, syy float64
-	v = 0
-	for i := 0; i < j; i++ {
-		if i > 0 {
-			v += (flow[i-1] + flow[i]) / 2 / 60 * (t[i] - t[i-1])
-		}
-		x1, x2, y := flow[i]/60-mx1, v-mx2, paw[i]-my
+	t, paw, flow := s.t[:j], s.paw[:j], s.flow[:j]
+	f0, p0 := flow[0]*(1.0/60), paw[0]
+	var m1, m2, my, s11, s12, s22, s1y, s2y, syy, v float64
+	prevF, prevT := flow[0], t[0]
+	const perMin = 1.0 / 60 // L/min to L/s, multiplied: no division per sample
+	for i := range t {
+		v += (prevF + flow[i]) * (perMin / 2) * (t[i] - prevT)
+		prevF, prevT = flow[i], t[i]
+		x1, x2, y := flow[i]*perMin-f0, v, paw[i]-p0
+		m1 += x1
+		m2 += x2
+		my += y
 		s11 += x1 * x1
 		s12 += x1 * x2
 		s22 += x2 * x2
@@ -346,8 +356,16 @@ func (s *Segmenter) fit(b *Breath, j int) {
 		s2y += x2 * y
 		syy += y * y
 	}
+	n := float64(j)
+	m1, m2, my = m1/n, m2/n, my/n
+	s11 -= n * m1 * m1
+	s12 -= n * m1 * m2
+	s22 -= n * m2 * m2
+	s1y -= n * m1 * my
+	s2y -= n * m2 * my
+	syy -= n * my * my
 	det := s11*s22 - s12*s12
-	if det <= 0 || syy == 0 {
+	if det <= 0 || syy <= 0 {
 		return
 	}
 	r := (s1y*s22 - s2y*s12) / det
@@ -355,7 +373,7 @@ func (s *Segmenter) fit(b *Breath, j int) {
 	ssr := syy - r*s1y - el*s2y // residual sum of squares
 	b.FitR2 = 1 - ssr/syy
 	b.FitR = r
-	b.FitP0 = my - r*mx1 - el*mx2
+	b.FitP0 = (my + p0) - r*(m1+f0) - el*m2
 	if el > 0 {
 		b.FitC = 1000 / el
 		b.Tau = r / el
@@ -395,7 +413,7 @@ func (s *Segmenter) stressIndex(flowEnd int) float64 {
 		py[k] -= my
 		syy += py[k] * py[k]
 	}
-	b, ok := siNewton(lt, py, s.lastSI)
+	b, ok := siNewton(lt, py, s.scratch[2*m:3*m], s.lastSI)
 	if !ok {
 		b = siBrent(lt, py, syy)
 	}
@@ -430,20 +448,35 @@ func siBrent(lt, py []float64, syy float64) float64 {
 // g(b) = P²/Q, P = Σ x·y, Q = Σ x² − (Σ x)²/n, x = e^(b·l), y centred —
 // the residual is syy − g, so its minimum is g's maximum. Each step takes
 // one exponential per point, against a dozen for Brent's method over the
-// whole range. Where g is not concave at b0 it starts again from 1; ok is
+// whole range, and a step under 0.01 none: the next e^(b·l) is the last
+// times a short series. xs holds them. Where g is not concave at b0 it starts again from 1; ok is
 // false when a step fails (g not concave, out of [0.2, 5], no convergence
 // in 12 steps), and the caller falls back to Brent.
-func siNewton(lt, py []float64, b0 float64) (float64, bool) {
+func siNewton(lt, py, xs []float64, b0 float64) (float64, bool) {
 	b := b0
 	if math.IsNaN(b) || b < 0.3 || b > 4.5 {
 		b = 1
 	}
 	n := float64(len(lt))
+	xs = xs[:len(lt)]
+	step := math.Inf(1)
 	for range 12 {
+		if math.Abs(step) <= 0.01 {
+			// after a small step, e^(b·l) from the last one's: |d| ≤
+			// 0.05 leaves the series' remainder under 3e-9
+			for k, l := range lt {
+				d := step * l
+				xs[k] *= 1 + d*(1+d*(1.0/2+d*(1.0/6+d*(1.0/24))))
+			}
+		} else {
+			for k, l := range lt {
+				xs[k] = math.Exp(b * l)
+			}
+		}
 		var sx, slx, sllx, sxx, slxx, sllxx, p, sp, spp float64
-		for k, l := range lt {
-			x := math.Exp(b * l)
-			lx, xx, xy := l*x, x*x, x*py[k]
+		for k, x := range xs {
+			l, y := lt[k], py[k]
+			lx, xx, xy := l*x, x*x, x*y
 			sx += x
 			slx += lx
 			sllx += l * lx
@@ -466,10 +499,10 @@ func siNewton(lt, py []float64, b0 float64) (float64, bool) {
 			if b != b0 || math.IsNaN(b0) {
 				return nan, false
 			}
-			b, b0 = 1, nan // far from the previous exponent: once more from 1
+			b, b0, step = 1, nan, math.Inf(1) // far from the previous exponent: once more from 1
 			continue
 		}
-		step := math.Max(-0.25, math.Min(0.25, -g1/g2)) // damped far away
+		step = math.Max(-0.25, math.Min(0.25, -g1/g2)) // damped far away
 		b += step
 		if b < 0.2 || b > 5 || math.IsNaN(b) {
 			return nan, false

@@ -157,7 +157,14 @@ func (s *Segmenter) Add(t, paw, flow float64, gap bool) *Breath {
 	k := s.n
 	s.t[k], s.paw[k], s.flow[k] = t, paw, flow
 	s.n++
-	if s.checkOpen(t, paw, flow) || (s.state >= stInsp && t-s.t[0] > s.cfg.MaxBreath) {
+	if paw >= s.cfg.OpenPaw || math.Abs(flow) >= s.cfg.StartFlow {
+		s.open = false // the common case, without a call
+		s.openSince = nan
+	} else if s.checkOpen(t) {
+		s.drop(&s.drops.Open)
+		return nil
+	}
+	if s.state >= stInsp && t-s.t[0] > s.cfg.MaxBreath {
 		if s.open {
 			s.drop(&s.drops.Open)
 		} else {
@@ -205,14 +212,9 @@ func (s *Segmenter) Add(t, paw, flow float64, gap bool) *Breath {
 	return nil
 }
 
-// checkOpen tracks time with pressure below OpenPaw and reports an open
-// circuit once it lasts OpenTime.
-func (s *Segmenter) checkOpen(t, paw, flow float64) bool {
-	if paw >= s.cfg.OpenPaw || math.Abs(flow) >= s.cfg.StartFlow {
-		s.open = false
-		s.openSince = math.NaN()
-		return false
-	}
+// checkOpen tracks time with pressure below OpenPaw and flow under
+// StartFlow, and reports an open circuit once it lasts OpenTime.
+func (s *Segmenter) checkOpen(t float64) bool {
 	if math.IsNaN(s.openSince) || s.openSince > t {
 		s.openSince = t
 	}

@@ -274,7 +274,7 @@ func TestStressIndexNewtonAgainstBrent(t *testing.T) {
 			py[k] -= my
 			syy += py[k] * py[k]
 		}
-		got, ok := siNewton(lt, py, prev)
+		got, ok := siNewton(lt, py, make([]float64, len(lt)), prev)
 		ref := siBrent(lt, py, syy)
 		if !ok {
 			fallbacks++
