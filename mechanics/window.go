@@ -135,7 +135,8 @@ type Window struct {
 	hN      int
 	scratch []float64
 	idx     []int
-	parts   []part // the window's or the baseline's breaths' parts
+	parts   []part      // the window's or the baseline's breaths' parts
+	cur     sortedParts // the window's parts, sorted
 	trend   Trend
 	base    baseline // cached: the baseline moves slowly
 	last    float64  // the latest breath's end, s
@@ -170,6 +171,10 @@ func NewWindow(cfg WindowConfig) (*Window, error) {
 	w.trend.w = w
 	w.idx = make([]int, 0, cfg.Breaths)
 	w.parts = make([]part, 0, hcap)
+	w.cur.members = make([]part, 0, cfg.Breaths)
+	for k := range w.cur.sorted {
+		w.cur.sorted[k] = make([]float64, 0, cfg.Breaths+1)
+	}
 	w.base.at = nan
 	return w, nil
 }
@@ -399,27 +404,28 @@ func (w *Window) attribute(now float64, idx []int) Attribution {
 		b.cstat, b.nCstat = w.current(base, partCstat)
 		b.fitC, b.nFit = w.current(base, partFitC)
 	}
-	parts := w.windowParts(idx)
+	cur := &w.cur
+	cur.update(w.windowParts(idx))
 	w.trend.CChange = nan
-	if c, n := w.current(parts, partCstat); n >= 3 && b.nCstat >= 3 {
+	if c, n := cur.median(pkCstat); n >= 3 && b.nCstat >= 3 {
 		w.trend.CChange = (c - b.cstat) / b.cstat * 100
-	} else if c, n := w.current(parts, partFitC); n >= 3 && b.nFit >= 3 {
+	} else if c, n := cur.median(pkFitC); n >= 3 && b.nFit >= 3 {
 		w.trend.CChange = (c - b.fitC) / b.fitC * 100
 	}
-	curPeak, nc := w.current(parts, partPeak)
+	curPeak, nc := cur.median(pkPeak)
 	a := Attribution{Cause: RiseNone, PeakRise: nan, ResistiveRise: nan, ElasticRise: nan, BaselineBreaths: b.nPeak}
 	if b.nPeak < 3 || nc < 3 {
 		return a
 	}
 	a.PeakRise = curPeak - b.peak
 	a.Method = "plateau"
-	rc, n := w.current(parts, partRes)
-	ec, _ := w.current(parts, partEl)
+	rc, n := cur.median(pkRes)
+	ec, _ := cur.median(pkEl)
 	rb, eb := b.res, b.el
 	if b.nRes < 3 || n < 3 {
 		a.Method = "fit"
-		rc, n = w.current(parts, partFres)
-		ec, _ = w.current(parts, partFel)
+		rc, n = cur.median(pkFres)
+		ec, _ = cur.median(pkFel)
 		rb, eb = b.fres, b.fel
 		if b.nFres < 3 || n < 3 {
 			a.Method = ""
@@ -520,4 +526,91 @@ func selectKth(x []float64, k int) float64 {
 		}
 	}
 	return x[k]
+}
+
+// The parts the attribution takes medians of, by index into partFields.
+const (
+	pkPeak = iota
+	pkRes
+	pkEl
+	pkFres
+	pkFel
+	pkCstat
+	pkFitC
+	nPartFields
+)
+
+var partFields = [nPartFields]func(p part) float64{partPeak, partRes, partEl, partFres, partFel, partCstat, partFitC}
+
+// sortedParts keeps each part's values over the window's breaths sorted.
+// When the window has moved by one breath — one in, at most one out, the
+// usual case — it moves each sorted list by that breath instead of
+// sorting again.
+type sortedParts struct {
+	members []part                 // the window's breaths as last updated, oldest first
+	sorted  [nPartFields][]float64 // each part's values over members, NaN left out, ascending
+}
+
+func (sp *sortedParts) update(parts []part) {
+	m := sp.members
+	switch {
+	case len(parts) == len(m) && sameStarts(parts, m):
+	case len(m) > 0 && len(parts) == len(m) && sameStarts(parts[:len(m)-1], m[1:]):
+		sp.move(&m[0], false)
+		sp.move(&parts[len(parts)-1], true)
+	case len(parts) == len(m)+1 && sameStarts(parts[:len(m)], m):
+		sp.move(&parts[len(parts)-1], true)
+	default:
+		for k, get := range partFields {
+			x := sp.sorted[k][:0]
+			for _, p := range parts {
+				if v := get(p); !math.IsNaN(v) {
+					x = append(x, v)
+				}
+			}
+			sortSmall(x)
+			sp.sorted[k] = x
+		}
+	}
+	sp.members = append(sp.members[:0], parts...)
+}
+
+// move inserts p's values into the sorted lists, or removes them.
+func (sp *sortedParts) move(p *part, in bool) {
+	for k, get := range partFields {
+		v := get(*p)
+		if math.IsNaN(v) {
+			continue
+		}
+		x := sp.sorted[k]
+		if in { // one step of an insertion sort
+			x = append(x, v)
+			i := len(x) - 1
+			for ; i > 0 && x[i-1] > v; i-- {
+				x[i] = x[i-1]
+			}
+			x[i] = v
+		} else if i := slices.Index(x, v); i >= 0 {
+			x = x[:i+copy(x[i:], x[i+1:])]
+		}
+		sp.sorted[k] = x
+	}
+}
+
+// median is the median of part k over the window, and the count.
+func (sp *sortedParts) median(k int) (float64, int) {
+	x := sp.sorted[k]
+	if len(x) == 0 {
+		return nan, 0
+	}
+	return quantile(x, 0.5), len(x)
+}
+
+func sameStarts(a, b []part) bool {
+	for i := range a {
+		if a[i].t != b[i].t {
+			return false
+		}
+	}
+	return true
 }

@@ -186,3 +186,39 @@ func TestMedianOfAgainstSort(t *testing.T) {
 		}
 	}
 }
+
+// TestSortedPartsAgainstSort: the window's medians kept by moving sorted
+// lists one breath at a time are the medians of the window's breaths
+// sorted afresh (a sort is the reference; common practice, no source),
+// over an hour of breaths whose window also loses breaths by age.
+func TestSortedPartsAgainstSort(t *testing.T) {
+	sc := Scenario{Seed: 9, RateHz: 100, Duration: time.Hour,
+		Settings: Settings{Mode: ModeVC, R: 10, C: 50, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3},
+		Sensor:   Sensor{PawNoise: 0.2, FlowNoise: 0.5},
+		Timeline: []Change{{At: 20 * time.Minute, Ramp: 10 * time.Minute, Set: map[string]float64{"rr": 25}}}}
+	pairs, _, _ := runSim(t, sc, Config{})
+	w, _ := NewWindow(WindowConfig{Breaths: 20, Span: 60})
+	for i, p := range pairs {
+		b := p.got
+		w.Add(&b)
+		w.Trend()
+		parts := w.windowParts(w.idx)
+		for k, get := range partFields {
+			var x []float64
+			for _, q := range parts {
+				if v := get(q); !math.IsNaN(v) {
+					x = append(x, v)
+				}
+			}
+			slices.Sort(x)
+			want := math.NaN()
+			if len(x) > 0 {
+				want = quantile(x, 0.5)
+			}
+			got, n := w.cur.median(k)
+			if n != len(x) || (got != want && !(math.IsNaN(got) && math.IsNaN(want))) {
+				t.Fatalf("breath %d part %d: median %g of %d, sorted afresh %g of %d", i, k, got, n, want, len(x))
+			}
+		}
+	}
+}
