@@ -137,10 +137,12 @@ type Window struct {
 	idx     []int
 	parts   []part      // the window's or the baseline's breaths' parts
 	cur     sortedParts // the window's parts, sorted
-	trend   Trend
-	base    baseline // cached: the baseline moves slowly
-	last    float64  // the latest breath's end, s
-	stale   bool     // trend not computed since the latest Add
+	// baseVals are the baseline's values of each part, for its medians
+	baseVals [nPartFields][]float64
+	trend    Trend
+	base     baseline // cached: the baseline moves slowly
+	last     float64  // the latest breath's end, s
+	stale    bool     // trend not computed since the latest Add
 }
 
 // baseline holds the baseline window's medians, recomputed every five
@@ -172,6 +174,9 @@ func NewWindow(cfg WindowConfig) (*Window, error) {
 	w.idx = make([]int, 0, cfg.Breaths)
 	w.parts = make([]part, 0, hcap)
 	w.cur.members = make([]part, 0, cfg.Breaths)
+	for k := range w.baseVals {
+		w.baseVals[k] = make([]float64, 0, hcap)
+	}
 	for k := range w.cur.sorted {
 		w.cur.sorted[k] = make([]float64, 0, cfg.Breaths+1)
 	}
@@ -322,19 +327,30 @@ func (w *Window) remember(b *Breath) {
 	w.hN = min(w.hN+1, len(w.hist))
 }
 
-// baseParts gathers the parts of the breaths that started in [from, to).
-func (w *Window) baseParts(from, to float64) []part {
-	parts := w.parts[:0]
-	for k := 1; k <= w.hN; k++ {
-		p := w.hist[(w.hHead-k+len(w.hist))%len(w.hist)]
+// baseMedians takes the median of each part over the breaths that
+// started in [from, to), in one pass over the history.
+func (w *Window) baseMedians(from, to float64, med *[nPartFields]float64, n *[nPartFields]int) {
+	x := &w.baseVals
+	for k := range x {
+		x[k] = x[k][:0]
+	}
+	for i := 1; i <= w.hN; i++ {
+		p := &w.hist[(w.hHead-i+len(w.hist))%len(w.hist)]
 		if p.t < from {
 			break // older ones follow
 		}
-		if p.t < to {
-			parts = append(parts, p)
+		if p.t >= to {
+			continue
+		}
+		for k, v := range [nPartFields]float64{p.peak, p.res, p.el, p.fitRes, p.fitEl, p.cstat, p.fitC} {
+			if !math.IsNaN(v) {
+				x[k] = append(x[k], v)
+			}
 		}
 	}
-	return parts
+	for k := range x {
+		med[k], n[k] = medianOf(x[k]), len(x[k])
+	}
 }
 
 func partPeak(p part) float64  { return p.peak }
@@ -344,17 +360,6 @@ func partFres(p part) float64  { return p.fitRes }
 func partFel(p part) float64   { return p.fitEl }
 func partCstat(p part) float64 { return p.cstat }
 func partFitC(p part) float64  { return p.fitC }
-
-// current is the median of one part over parts.
-func (w *Window) current(parts []part, get func(p part) float64) (float64, int) {
-	x := w.scratch[:0]
-	for _, p := range parts {
-		if v := get(p); !math.IsNaN(v) {
-			x = append(x, v)
-		}
-	}
-	return medianOf(x), len(x)
-}
 
 // windowParts gathers the parts of the window's breaths (the slots of
 // idx, which are the latest entries of the history), oldest first.
@@ -395,14 +400,16 @@ func (w *Window) attribute(now float64, idx []int) Attribution {
 	b := &w.base
 	if math.IsNaN(b.at) || now-b.at >= 300 || now < b.at {
 		b.at = now
-		base := w.baseParts(baseFrom, winFrom)
-		b.peak, b.nPeak = w.current(base, partPeak)
-		b.res, b.nRes = w.current(base, partRes)
-		b.el, _ = w.current(base, partEl)
-		b.fres, b.nFres = w.current(base, partFres)
-		b.fel, _ = w.current(base, partFel)
-		b.cstat, b.nCstat = w.current(base, partCstat)
-		b.fitC, b.nFit = w.current(base, partFitC)
+		var med [nPartFields]float64
+		var n [nPartFields]int
+		w.baseMedians(baseFrom, winFrom, &med, &n)
+		b.peak, b.nPeak = med[pkPeak], n[pkPeak]
+		b.res, b.nRes = med[pkRes], n[pkRes]
+		b.el = med[pkEl]
+		b.fres, b.nFres = med[pkFres], n[pkFres]
+		b.fel = med[pkFel]
+		b.cstat, b.nCstat = med[pkCstat], n[pkCstat]
+		b.fitC, b.nFit = med[pkFitC], n[pkFitC]
 	}
 	cur := &w.cur
 	cur.update(w.windowParts(idx))
