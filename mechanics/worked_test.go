@@ -3,6 +3,7 @@ package mechanics
 import (
 	"math"
 	"math/rand/v2"
+	"slices"
 	"testing"
 	"time"
 
@@ -287,5 +288,34 @@ func TestStressIndexNewtonAgainstBrent(t *testing.T) {
 	t.Logf("Brent's method needed for %d of 500 curves", fallbacks)
 	if fallbacks > 25 {
 		t.Errorf("Newton's method failed on %d of 500 curves", fallbacks)
+	}
+}
+
+// TestStressIndexOfLinearLung: a single-compartment lung of constant
+// compliance inflated at constant flow has airway pressure linear in time
+// (P = PEEP + R·V' + V'·t/C, the equation of motion's analytic solution),
+// so its stress index is 1 (Ranieri et al., Anesthesiology 2000;93:1320).
+// With sensor noise (σ 0.2 cmH2O, 0.5 L/min) the median over breaths stays
+// within 0.02 of it and half the breaths within 0.05 (our tolerance,
+// common practice, no source).
+func TestStressIndexOfLinearLung(t *testing.T) {
+	sc := Scenario{Seed: 11, RateHz: 100, Duration: 20 * time.Minute,
+		Settings: Settings{Mode: ModeVC, R: 10, C: 50, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3},
+		Sensor:   Sensor{PawNoise: 0.2, FlowNoise: 0.5}}
+	pairs, _, _ := runSim(t, sc, Config{})
+	var si []float64
+	for _, p := range pairs {
+		if !math.IsNaN(p.got.SI) {
+			si = append(si, p.got.SI)
+		}
+	}
+	if len(si) < len(pairs)*9/10 {
+		t.Fatalf("stress index on %d of %d breaths", len(si), len(pairs))
+	}
+	slices.Sort(si)
+	med, q1, q3 := si[len(si)/2], si[len(si)/4], si[len(si)*3/4]
+	t.Logf("stress index over %d breaths: median %.4f, quartiles %.4f–%.4f", len(si), med, q1, q3)
+	if math.Abs(med-1) > 0.02 || q1 < 0.95 || q3 > 1.05 {
+		t.Errorf("stress index median %.4f, quartiles %.4f–%.4f; want 1", med, q1, q3)
 	}
 }
