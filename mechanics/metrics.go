@@ -394,31 +394,57 @@ func (s *Segmenter) stressIndex(flowEnd int) float64 {
 		return nan
 	}
 	step := max(1, (hi-lo)/siPoints)
-	lt := s.scratch[:0] // ln t, then the pressures
-	var my float64
+	si := &s.si
 	m := 0
+	same := true // the same times from the start as the last breath's
 	for i := lo; i < hi; i += step {
-		lt = append(lt, math.Log(s.t[i]-s.t[0]))
-		my += s.paw[i]
+		d := s.t[i] - s.t[0]
+		same = same && m < len(si.d) && math.Abs(d-si.d[m]) <= 1e-9*d
+		si.py[m] = s.paw[i]
 		m++
 	}
-	for i := lo; i < hi; i += step {
-		lt = append(lt, s.paw[i])
+	if !same || m != len(si.d) {
+		// new times: their logarithms, and no exponentials to start from
+		si.d, si.lt, si.xs = si.d[:m], si.lt[:m], si.xs[:m]
+		for k, i := 0, lo; i < hi; k, i = k+1, i+step {
+			si.d[k] = s.t[i] - s.t[0]
+			si.lt[k] = math.Log(si.d[k])
+		}
+		si.at = nan
 	}
-	lt, py := lt[:m], lt[m:2*m]
-	n := float64(m)
-	my /= n
+	py := si.py[:m]
+	var my float64
+	for _, p := range py {
+		my += p
+	}
+	my /= float64(m)
 	var syy float64
 	for k := range py {
 		py[k] -= my
 		syy += py[k] * py[k]
 	}
-	b, ok := siNewton(lt, py, s.scratch[2*m:3*m], s.lastSI)
+	b, ok := si.newton(py, s.lastSI)
 	if !ok {
-		b = siBrent(lt, py, syy)
+		b = siBrent(si.lt, py, syy)
 	}
 	s.lastSI = b
 	return b
+}
+
+// siFit keeps what one breath's stress-index fit leaves for the next: at a
+// steady rate and inspiratory time the sample times from the breath's
+// start repeat, and so do their logarithms, and the exponentials of the
+// last Newton step are the next breath's starting point.
+type siFit struct {
+	d, lt, xs, py []float64 // time from the start (s), its log, e^(at·lt), pressure
+	at            float64   // the exponent xs holds, NaN for none
+	series        int       // steps taken by the series since xs were exact
+}
+
+func newSIFit() siFit {
+	const n = 2*siPoints + 2
+	return siFit{d: make([]float64, 0, n), lt: make([]float64, 0, n), xs: make([]float64, 0, n),
+		py: make([]float64, n), at: nan}
 }
 
 // siBrent finds the stress-index exponent by Brent's method over [0.2, 5]
@@ -443,36 +469,40 @@ func siBrent(lt, py []float64, syy float64) float64 {
 	return b
 }
 
-// siNewton finds the stress-index exponent by Newton's method from b0
+// newton finds the stress-index exponent by Newton's method from b0
 // (the previous breath's, NaN for none), on the explained sum of squares
 // g(b) = P²/Q, P = Σ x·y, Q = Σ x² − (Σ x)²/n, x = e^(b·l), y centred —
 // the residual is syy − g, so its minimum is g's maximum. Each step takes
 // one exponential per point, against a dozen for Brent's method over the
 // whole range, and a step under 0.01 none: the next e^(b·l) is the last
-// times a short series. xs holds them. Where g is not concave at b0 it starts again from 1; ok is
+// times a short series — also from one breath to the next, whose times
+// from the start are the same (f keeps them). Where g is not concave at b0 it starts again from 1; ok is
 // false when a step fails (g not concave, out of [0.2, 5], no convergence
 // in 12 steps), and the caller falls back to Brent.
-func siNewton(lt, py, xs []float64, b0 float64) (float64, bool) {
+func (f *siFit) newton(py []float64, b0 float64) (float64, bool) {
+	lt, xs := f.lt, f.xs
 	b := b0
 	if math.IsNaN(b) || b < 0.3 || b > 4.5 {
 		b = 1
 	}
 	n := float64(len(lt))
-	xs = xs[:len(lt)]
-	step := math.Inf(1)
 	for range 12 {
-		if math.Abs(step) <= 0.01 {
-			// after a small step, e^(b·l) from the last one's: |d| ≤
-			// 0.05 leaves the series' remainder under 3e-9
+		if step := b - f.at; math.Abs(step) <= 0.01 && f.series < 32 {
+			// near the exponent xs hold, e^(b·l) from them by a series:
+			// |step·l| ≤ 0.05 leaves its remainder under 3e-9, and after
+			// 32 such steps they are taken afresh
 			for k, l := range lt {
 				d := step * l
 				xs[k] *= 1 + d*(1+d*(1.0/2+d*(1.0/6+d*(1.0/24))))
 			}
+			f.series++
 		} else {
 			for k, l := range lt {
 				xs[k] = math.Exp(b * l)
 			}
+			f.series = 0
 		}
+		f.at = b
 		var sx, slx, sllx, sxx, slxx, sllxx, p, sp, spp float64
 		for k, x := range xs {
 			l, y := lt[k], py[k]
@@ -499,10 +529,10 @@ func siNewton(lt, py, xs []float64, b0 float64) (float64, bool) {
 			if b != b0 || math.IsNaN(b0) {
 				return nan, false
 			}
-			b, b0, step = 1, nan, math.Inf(1) // far from the previous exponent: once more from 1
+			b, b0 = 1, nan // far from the previous exponent: once more from 1
 			continue
 		}
-		step = math.Max(-0.25, math.Min(0.25, -g1/g2)) // damped far away
+		step := max(-0.25, min(0.25, -g1/g2)) // damped far away
 		b += step
 		if b < 0.2 || b > 5 || math.IsNaN(b) {
 			return nan, false

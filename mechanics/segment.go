@@ -110,8 +110,8 @@ type Segmenter struct {
 	lastPEEP  float64 // the previous breath's PEEP, cmH2O; NaN at first
 	drops     Drops
 	out       Breath
-	scratch   []float64 // for the stress-index fit
-	lastSI    float64   // the previous stress index, where its fit starts; NaN for none
+	si        siFit   // the stress-index fit's points, kept from breath to breath
+	lastSI    float64 // the previous stress index, where its fit starts; NaN for none
 }
 
 // NewSegmenter returns a segmenter for samples arriving at about rateHz
@@ -126,7 +126,7 @@ func NewSegmenter(cfg Config, rateHz float64) (*Segmenter, error) {
 	}
 	size := int(math.Min(math.Max(cfg.MaxBreath*rateHz*1.5, 1024), 1<<18))
 	s := &Segmenter{cfg: cfg, t: make([]float64, size), paw: make([]float64, size), flow: make([]float64, size),
-		scratch: make([]float64, 0, size), openSince: math.NaN(), lastPEEP: math.NaN(), lastSI: math.NaN()}
+		si: newSIFit(), openSince: math.NaN(), lastPEEP: math.NaN(), lastSI: math.NaN()}
 	if cfg.Sex != "" {
 		s.pbw, _ = PredictedBodyWeight(cfg.Sex, cfg.HeightCm)
 	}

@@ -275,7 +275,8 @@ func TestStressIndexNewtonAgainstBrent(t *testing.T) {
 			py[k] -= my
 			syy += py[k] * py[k]
 		}
-		got, ok := siNewton(lt, py, make([]float64, len(lt)), prev)
+		f := siFit{lt: lt, xs: make([]float64, len(lt)), at: math.NaN()}
+		got, ok := f.newton(py, prev)
 		ref := siBrent(lt, py, syy)
 		if !ok {
 			fallbacks++
