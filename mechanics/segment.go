@@ -103,6 +103,8 @@ type Segmenter struct {
 	expStart     int // index of the first expiratory sample
 	openSince    float64
 	open         bool
+	deadline     float64 // t[0] + MaxBreath in a breath, else +Inf
+	inspMin      float64 // t[0] + MinInsp in a breath
 
 	seq       int64
 	afterDrop bool    // the next breath follows a dropped one
@@ -126,7 +128,7 @@ func NewSegmenter(cfg Config, rateHz float64) (*Segmenter, error) {
 	}
 	size := int(math.Min(math.Max(cfg.MaxBreath*rateHz*1.5, 1024), 1<<18))
 	s := &Segmenter{cfg: cfg, t: make([]float64, size), paw: make([]float64, size), flow: make([]float64, size),
-		si: newSIFit(), openSince: math.NaN(), lastPEEP: math.NaN(), lastSI: math.NaN()}
+		si: newSIFit(), openSince: math.NaN(), deadline: math.Inf(1), lastPEEP: math.NaN(), lastSI: math.NaN()}
 	if cfg.Sex != "" {
 		s.pbw, _ = PredictedBodyWeight(cfg.Sex, cfg.HeightCm)
 	}
@@ -164,7 +166,7 @@ func (s *Segmenter) Add(t, paw, flow float64, gap bool) *Breath {
 		s.drop(&s.drops.Open)
 		return nil
 	}
-	if s.state >= stInsp && t-s.t[0] > s.cfg.MaxBreath {
+	if t > s.deadline { // a breath in progress for longer than MaxBreath
 		if s.open {
 			s.drop(&s.drops.Open)
 		} else {
@@ -191,7 +193,7 @@ func (s *Segmenter) Add(t, paw, flow float64, gap bool) *Breath {
 			s.keepLast(16)
 		}
 	case stInsp:
-		if flow < c.EndFlow && t-s.t[0] >= c.MinInsp {
+		if flow < c.EndFlow && t >= s.inspMin {
 			s.inspEnd, s.state = k, stPostInsp
 			if flow < -c.ExpFlow { // straight into expiration, no pause
 				s.expStart, s.state = k, stExp
@@ -245,6 +247,7 @@ func (s *Segmenter) riseStart(k, lo int) int {
 func (s *Segmenter) begin(j int) {
 	s.shift(j)
 	s.state, s.inspEnd, s.expStart = stInsp, -1, -1
+	s.deadline, s.inspMin = s.t[0]+s.cfg.MaxBreath, s.t[0]+s.cfg.MinInsp
 }
 
 // finish computes the breath that ends at index j (the next start), starts
@@ -269,6 +272,7 @@ func (s *Segmenter) drop(counter *int64) {
 		s.afterDrop = true
 	}
 	s.state, s.n, s.nextDip, s.lastPEEP = stSync, 0, false, math.NaN()
+	s.deadline = math.Inf(1)
 }
 
 // shift moves samples [j, n) to the front of the buffer.

@@ -28,15 +28,33 @@ var simDay = sync.OnceValue(func() []byte {
 	return buf.Bytes()
 })
 
-type countBreaths struct{ n int }
+type countBreaths struct {
+	n     int
+	trend bool // compute the window's trend after each breath, as a sink that shows it does
+}
 
-func (c *countBreaths) Breath(string, *mechanics.Breath, *mechanics.Window) { c.n++ }
+func (c *countBreaths) Breath(_ string, _ *mechanics.Breath, w *mechanics.Window) {
+	c.n++
+	if c.trend {
+		w.Trend()
+	}
+}
 
-// BenchmarkAnalyze runs the whole per-device loop — decode, breath
-// detection, every metric, the rolling window, the default rules — over
-// the day-long stream;
-// one op is the whole day. allocs/sample is the allocation per sample.
+// BenchmarkAnalyze runs the per-device loop over the day-long stream:
+// decode, breath detection, every metric, and the rolling window with its
+// trend (slopes, attribution) after every breath; one op is the whole day.
+// allocs/sample is the allocation per sample.
 func BenchmarkAnalyze(b *testing.B) {
+	benchAnalyze(b, nil)
+}
+
+// BenchmarkAnalyzeRules is BenchmarkAnalyze with the default rules
+// evaluated on every breath and every second, as run and analyze do.
+func BenchmarkAnalyzeRules(b *testing.B) {
+	benchAnalyze(b, alerts.Defaults())
+}
+
+func benchAnalyze(b *testing.B, rules []alerts.Rule) {
 	data := simDay()
 	var samples int64
 	var ms0, ms1 runtime.MemStats
@@ -44,8 +62,8 @@ func BenchmarkAnalyze(b *testing.B) {
 	b.SetBytes(int64(len(data)))
 	b.ResetTimer()
 	for range b.N {
-		sink := &countBreaths{}
-		st, err := Run(context.Background(), io.NopCloser(bytes.NewReader(data)), Config{Device: "bench", Sink: sink, Rules: alerts.Defaults()})
+		sink := &countBreaths{trend: true}
+		st, err := Run(context.Background(), io.NopCloser(bytes.NewReader(data)), Config{Device: "bench", Sink: sink, Rules: rules})
 		if err != nil || sink.n < 21000 {
 			b.Fatalf("%v, %d breaths", err, sink.n)
 		}
