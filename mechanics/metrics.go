@@ -406,9 +406,11 @@ func (s *Segmenter) stressIndex(flowEnd int) float64 {
 	if !same || m != len(si.d) {
 		// new times: their logarithms, and no exponentials to start from
 		si.d, si.lt, si.xs = si.d[:m], si.lt[:m], si.xs[:m]
+		si.lmax = 0
 		for k, i := 0, lo; i < hi; k, i = k+1, i+step {
 			si.d[k] = s.t[i] - s.t[0]
 			si.lt[k] = math.Log(si.d[k])
+			si.lmax = max(si.lmax, math.Abs(si.lt[k]))
 		}
 		si.at = nan
 	}
@@ -438,6 +440,7 @@ func (s *Segmenter) stressIndex(flowEnd int) float64 {
 type siFit struct {
 	d, lt, xs, py []float64 // time from the start (s), its log, e^(at·lt), pressure
 	at            float64   // the exponent xs holds, NaN for none
+	lmax          float64   // the largest |lt|
 	series        int       // steps taken by the series since xs were exact
 }
 
@@ -474,7 +477,7 @@ func siBrent(lt, py []float64, syy float64) float64 {
 // g(b) = P²/Q, P = Σ x·y, Q = Σ x² − (Σ x)²/n, x = e^(b·l), y centred —
 // the residual is syy − g, so its minimum is g's maximum. Each step takes
 // one exponential per point, against a dozen for Brent's method over the
-// whole range, and a step under 0.01 none: the next e^(b·l) is the last
+// whole range, and a small step none: the next e^(b·l) is the last
 // times a short series — also from one breath to the next, whose times
 // from the start are the same (f keeps them). Where g is not concave at b0 it starts again from 1; ok is
 // false when a step fails (g not concave, out of [0.2, 5], no convergence
@@ -487,13 +490,13 @@ func (f *siFit) newton(py []float64, b0 float64) (float64, bool) {
 	}
 	n := float64(len(lt))
 	for range 12 {
-		if step := b - f.at; math.Abs(step) <= 0.01 && f.series < 32 {
+		if step := b - f.at; math.Abs(step)*f.lmax <= 0.12 && f.series < 32 {
 			// near the exponent xs hold, e^(b·l) from them by a series:
-			// |step·l| ≤ 0.05 leaves its remainder under 3e-9, and after
+			// |step·l| ≤ 0.12 leaves its remainder under 1e-10, and after
 			// 32 such steps they are taken afresh
 			for k, l := range lt {
 				d := step * l
-				xs[k] *= 1 + d*(1+d*(1.0/2+d*(1.0/6+d*(1.0/24))))
+				xs[k] *= 1 + d*(1+d*(1.0/2+d*(1.0/6+d*(1.0/24+d*(1.0/120+d*(1.0/720))))))
 			}
 			f.series++
 		} else {

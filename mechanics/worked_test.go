@@ -275,7 +275,7 @@ func TestStressIndexNewtonAgainstBrent(t *testing.T) {
 			py[k] -= my
 			syy += py[k] * py[k]
 		}
-		f := siFit{lt: lt, xs: make([]float64, len(lt)), at: math.NaN()}
+		f := siFit{lt: lt, xs: make([]float64, len(lt)), at: math.NaN(), lmax: -math.Log(1.0 / 48)}
 		got, ok := f.newton(py, prev)
 		ref := siBrent(lt, py, syy)
 		if !ok {
