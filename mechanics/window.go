@@ -135,7 +135,7 @@ type Window struct {
 	hN      int
 	scratch []float64
 	idx     []int
-	parts   []part      // the window's or the baseline's breaths' parts
+	parts   []part      // the window's breaths' parts
 	cur     sortedParts // the window's parts, sorted
 	// baseVals are the baseline's values of each part, for its medians
 	baseVals [nPartFields][]float64
@@ -172,7 +172,7 @@ func NewWindow(cfg WindowConfig) (*Window, error) {
 	w.trend.stats = make([]Stat, len(Fields))
 	w.trend.w = w
 	w.idx = make([]int, 0, cfg.Breaths)
-	w.parts = make([]part, 0, hcap)
+	w.parts = make([]part, 0, cfg.Breaths)
 	w.cur.members = make([]part, 0, cfg.Breaths)
 	for k := range w.baseVals {
 		w.baseVals[k] = make([]float64, 0, hcap)
@@ -342,8 +342,8 @@ func (w *Window) baseMedians(from, to float64, med *[nPartFields]float64, n *[nP
 		if p.t >= to {
 			continue
 		}
-		for k, v := range [nPartFields]float64{p.peak, p.res, p.el, p.fitRes, p.fitEl, p.cstat, p.fitC} {
-			if !math.IsNaN(v) {
+		for k, get := range partFields {
+			if v := get(*p); !math.IsNaN(v) {
 				x[k] = append(x[k], v)
 			}
 		}

@@ -123,7 +123,7 @@ func (d *Decoder) decodeFast(dst []Sample) int {
 func (d *Decoder) plainLine(w *[batchWindow]byte, out *[8]float64) uint {
 	q := uint(0) // unsigned, so that q < lineRoom proves w[q] in bounds
 	for col := 0; ; col++ {
-		neg := b2u(w[q&windowMask] == '-')
+		neg := uint64(b2i(w[q&windowMask] == '-'))
 		q += uint(neg)
 		var mant uint64
 		from := q
@@ -171,12 +171,4 @@ func (d *Decoder) plainLine(w *[batchWindow]byte, out *[8]float64) uint {
 			return 0
 		}
 	}
-}
-
-// b2u is 1 for true; the compiler makes it a SETcc, not a branch.
-func b2u(b bool) uint64 {
-	if b {
-		return 1
-	}
-	return 0
 }
