@@ -125,28 +125,14 @@ func (d *Decoder) plainLine(w *[batchWindow]byte, out *[8]float64) uint {
 	for col := 0; ; col++ {
 		neg := uint64(b2i(w[q&windowMask] == '-'))
 		q += uint(neg)
-		var mant uint64
 		from := q
-		for q < lineRoom {
-			dig := uint64(w[q]) - '0'
-			if dig > 9 {
-				break
-			}
-			mant = mant*10 + dig
-			q++
-		}
+		var mant uint64
+		q, mant = digitRun(w, q, 0)
 		nd, frac := q-from, uint(0)
 		if w[q&windowMask] == '.' {
 			q++
 			from = q
-			for q < lineRoom {
-				dig := uint64(w[q]) - '0'
-				if dig > 9 {
-					break
-				}
-				mant = mant*10 + dig
-				q++
-			}
+			q, mant = digitRun(w, q, mant)
 			frac = q - from
 			nd += frac
 		}
@@ -171,4 +157,18 @@ func (d *Decoder) plainLine(w *[batchWindow]byte, out *[8]float64) uint {
 			return 0
 		}
 	}
+}
+
+// digitRun appends the decimal digits from w[q] to mant and returns the
+// offset of the first byte that is not a digit (at most lineRoom).
+func digitRun(w *[batchWindow]byte, q uint, mant uint64) (uint, uint64) {
+	for q < lineRoom {
+		dig := uint64(w[q]) - '0'
+		if dig > 9 {
+			break
+		}
+		mant = mant*10 + dig
+		q++
+	}
+	return q, mant
 }
