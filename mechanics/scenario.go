@@ -44,6 +44,39 @@ type Settings struct {
 	EffortP    float64 `yaml:"effort_p"`
 	EffortTime float64 `yaml:"effort_time"`
 	Leak       float64 `yaml:"leak"` // leak flow per airway pressure, L/min per cmH2O
+
+	// Beyond the single compartment (all 0: the ideal lung, integrated
+	// exactly). R above is then the central airway's resistance.
+	R2     float64 `yaml:"r2"`      // a second compartment's own resistance, cmH2O·s/L (with c2)
+	C2     float64 `yaml:"c2"`      // its compliance, mL/cmH2O; c is the first's
+	E2     float64 `yaml:"e2"`      // volume-dependent elastance of the first compartment, Pel = V/C + E2·V², cmH2O/L²
+	K2     float64 `yaml:"k2"`      // flow-dependent airway resistance, ΔP = R·V' + K2·V'·|V'|, cmH2O·s²/L²
+	ViscoC float64 `yaml:"visco_c"` // viscoelastic tissue: a spring of this compliance, mL/cmH2O, …
+	ViscoR float64 `yaml:"visco_r"` // … in series with a dashpot of this resistance, cmH2O·s/L
+	// CardiacP is the amplitude of a pressure oscillation inside the chest
+	// at CardiacRate beats a minute, cmH2O.
+	CardiacP    float64 `yaml:"cardiac_p"`
+	CardiacRate float64 `yaml:"cardiac_rate"`
+	// CircuitC is the breathing circuit's compliance, mL/cmH2O: flow is
+	// then measured at the ventilator and includes the gas compressed in
+	// the circuit.
+	CircuitC float64 `yaml:"circuit_c"`
+	// ValveTime is how long the ventilator's valves take to open or
+	// close, s: volume-control flow rises and falls, and the pressure falls
+	// to PEEP at expiration, over this long.
+	ValveTime float64 `yaml:"valve_time"`
+	// ValveR is the exhalation valve's resistance, cmH2O·s/L: in
+	// expiration the airway pressure is PEEP + ValveR·(outward flow), and
+	// falls below PEEP when the patient draws flow in (0: the valve holds
+	// PEEP exactly).
+	ValveR float64 `yaml:"valve_r"`
+}
+
+// ideal reports whether the lung is the single compartment with ideal
+// valves, which the simulator integrates exactly.
+func (s *Settings) ideal() bool {
+	return s.C2 == 0 && s.E2 == 0 && s.K2 == 0 && s.ViscoC == 0 && s.CardiacP == 0 &&
+		s.CircuitC == 0 && s.ValveTime == 0 && s.ValveR == 0
 }
 
 // numeric lists the settings a timeline may change, with their addresses.
@@ -52,6 +85,9 @@ func (s *Settings) numeric() map[string]*float64 {
 		"r": &s.R, "c": &s.C, "peep": &s.PEEP, "rr": &s.RR, "vt": &s.VT, "ti": &s.Ti,
 		"pause": &s.Pause, "pinsp": &s.PInsp, "rise": &s.Rise, "cycle": &s.Cycle, "trigger": &s.Trigger, "trigger_delay": &s.TriggerDelay,
 		"effort_rate": &s.EffortRate, "effort_p": &s.EffortP, "effort_time": &s.EffortTime, "leak": &s.Leak,
+		"r2": &s.R2, "c2": &s.C2, "e2": &s.E2, "k2": &s.K2, "visco_c": &s.ViscoC, "visco_r": &s.ViscoR,
+		"cardiac_p": &s.CardiacP, "cardiac_rate": &s.CardiacRate, "circuit_c": &s.CircuitC,
+		"valve_time": &s.ValveTime, "valve_r": &s.ValveR,
 	}
 }
 
@@ -71,6 +107,10 @@ func (s *Settings) Validate() error {
 		{"pause", s.Pause, 0, 5}, {"rise", s.Rise, 0, 2}, {"effort_rate", s.EffortRate, 0, 80},
 		{"effort_p", s.EffortP, 0, 40}, {"effort_time", s.EffortTime, 0, 3}, {"leak", s.Leak, 0, 5},
 		{"cycle", s.Cycle, 0, 0.9}, {"trigger", s.Trigger, 0, 30}, {"trigger_delay", s.TriggerDelay, 0, 0.5},
+		{"r2", s.R2, 0, 200}, {"c2", s.C2, 0, 500}, {"e2", s.E2, 0, 500}, {"k2", s.K2, 0, 100},
+		{"visco_c", s.ViscoC, 0, 1000}, {"visco_r", s.ViscoR, 0, 200}, {"cardiac_p", s.CardiacP, 0, 5},
+		{"cardiac_rate", s.CardiacRate, 0, 200}, {"circuit_c", s.CircuitC, 0, 10},
+		{"valve_time", s.ValveTime, 0, 0.1}, {"valve_r", s.ValveR, 0, 50},
 	}
 	for _, c := range checks {
 		if math.IsNaN(c.v) || c.v < c.min || c.v > c.max {
@@ -93,6 +133,15 @@ func (s *Settings) Validate() error {
 	} else if s.PInsp <= 0 || s.PInsp > 60 {
 		return fmt.Errorf("pinsp %g cmH2O out of range (above 0, up to 60)", s.PInsp)
 	}
+	if (s.C2 > 0) != (s.R2 > 0) {
+		return errors.New("a second compartment needs both r2 and c2")
+	}
+	if (s.ViscoC > 0) != (s.ViscoR > 0) {
+		return errors.New("viscoelastic tissue needs both visco_c and visco_r")
+	}
+	if s.CardiacP > 0 && s.CardiacRate <= 0 {
+		return errors.New("cardiac_p needs cardiac_rate")
+	}
 	if s.EffortRate > 0 && (s.EffortP <= 0 || s.EffortTime <= 0) {
 		return errors.New("effort_rate needs effort_p and effort_time")
 	}
@@ -102,12 +151,22 @@ func (s *Settings) Validate() error {
 	return nil
 }
 
-// Sensor describes the ventilator's measurement: noise, drift, printing.
+// Sensor describes the ventilator's measurement: dynamics, noise, drift,
+// printing.
 type Sensor struct {
 	PawNoise  float64 `yaml:"paw_noise"`  // σ of Gaussian pressure noise, cmH2O
 	FlowNoise float64 `yaml:"flow_noise"` // σ of Gaussian flow noise, L/min
 	FlowDrift float64 `yaml:"flow_drift"` // flow offset drift, L/min per hour
 	Digits    int     `yaml:"digits"`     // decimals printed for paw and flow; default 2
+	PawLag    float64 `yaml:"paw_lag"`    // pressure sensor: first-order low-pass time constant, s
+	FlowLag   float64 `yaml:"flow_lag"`   // flow sensor: the same, s
+	FlowDelay float64 `yaml:"flow_delay"` // the flow channel arrives this much later than the pressure, s
+	PawDelay  float64 `yaml:"paw_delay"`  // the pressure channel arrives this much later than the flow, s
+}
+
+// ideal reports whether the sensor reads the airway without dynamics.
+func (s *Sensor) ideal() bool {
+	return s.PawLag == 0 && s.FlowLag == 0 && s.FlowDelay == 0 && s.PawDelay == 0
 }
 
 // Change is one event on a scenario's timeline: from At, the settings in
@@ -177,6 +236,11 @@ func (sc *Scenario) Validate() error {
 	}
 	if sc.Sensor.PawNoise < 0 || sc.Sensor.FlowNoise < 0 || sc.Sensor.Digits < 0 || sc.Sensor.Digits > 6 {
 		return errors.New("sensor: noise must not be negative, digits 0…6")
+	}
+	for _, v := range []float64{sc.Sensor.PawLag, sc.Sensor.FlowLag, sc.Sensor.FlowDelay, sc.Sensor.PawDelay} {
+		if math.IsNaN(v) || v < 0 || v > 0.2 {
+			return errors.New("sensor: lags and delays must be 0…0.2 s")
+		}
 	}
 	if sc.Patient.Sex != "" || sc.Patient.HeightCm != 0 {
 		if _, err := PredictedBodyWeight(sc.Patient.Sex, sc.Patient.HeightCm); err != nil {

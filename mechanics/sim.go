@@ -13,14 +13,20 @@ type Truth struct {
 	TStart    float64 // s
 	TEnd      float64 // s, the next breath's start
 	Mode      string  // vc, pc or ps
-	R         float64 // cmH2O·s/L
-	C         float64 // mL/cmH2O
+	R         float64 // set (central airway) resistance, cmH2O·s/L
+	C         float64 // set compliance (of the first compartment), mL/cmH2O
+	// REq is the resistance of the single compartment that matches the
+	// lung at this breath's rate (R for the ideal lung), cmH2O·s/L.
+	REq float64
+	// CStatic is the static compliance over the breath, VT over the rise
+	// of the lung's static recoil (C for the ideal lung), mL/cmH2O.
+	CStatic float64
 	PEEP      float64 // set PEEP, cmH2O
-	IPEEP     float64 // intrinsic PEEP at the breath's start (alveolar pressure above PEEP), cmH2O
+	IPEEP     float64 // intrinsic PEEP at the breath's start (static recoil above PEEP), cmH2O
 	VT        float64 // volume into the lung, mL
 	Peak      float64 // highest noise-free airway pressure at a sample, cmH2O
 	Plateau   float64 // noise-free airway pressure at the end of the pause, cmH2O; NaN without a pause
-	DP        float64 // driving pressure VT/C, cmH2O
+	DP        float64 // driving pressure VT/CStatic, cmH2O
 	RR        float64 // 60/(TEnd − TStart), 1/min
 	Active    bool    // muscle effort during the breath
 	Triggered bool    // started by the patient's effort
@@ -31,7 +37,7 @@ type SimSample struct {
 	T        float64 // s
 	Paw      float64 // measured airway pressure: with noise, cmH2O
 	Flow     float64 // measured flow: lung flow with leak, drift and noise, L/min
-	PawTrue  float64 // noise-free airway pressure, cmH2O
+	PawTrue  float64 // airway pressure, without the sensor's dynamics and noise, cmH2O
 	FlowTrue float64 // flow into the lung, L/min
 	Open     bool    // the circuit is disconnected
 }
@@ -84,6 +90,18 @@ type Sim struct {
 	vStart  float64
 	vMax    float64
 	started bool
+
+	// the extended lung (simlung.go)
+	ext          bool      // integrate the extended model
+	x            lungState // its state
+	pEnd         float64   // airway pressure when expiration began, cmH2O
+	sumQ2, sumQ3 float64   // ∫Q² and ∫|Q|³ over the breath, for its equivalent resistance
+
+	// the sensor's dynamics
+	lagP, lagF     float64   // the low-passed pressure and flow
+	alphaP, alphaF float64   // their filter gains per sample
+	histP, histF   []float64 // rings of the low-passed samples, for the delays
+	histN          int       // samples put into them
 }
 
 // NewSim returns a simulator for sc (defaults applied, then validated by
@@ -97,7 +115,49 @@ func NewSim(sc Scenario, truth func(Truth)) *Sim {
 	s.end = int64(math.Round(sc.Duration.Seconds() * sc.RateHz))
 	s.rng = rand.New(rand.NewPCG(sc.Seed, sc.Seed^0x9e3779b97f4a7c15))
 	s.nextEffort = 1.0 // the first effort, if any, a second in
+	sn := &sc.Sensor
+	gain := func(tau float64) float64 {
+		if tau <= 0 {
+			return 1
+		}
+		return 1 - math.Exp(-s.dt/tau)
+	}
+	s.alphaP, s.alphaF = gain(sn.PawLag), gain(sn.FlowLag)
+	n := int(math.Ceil(max(sn.PawDelay, sn.FlowDelay)/s.dt)) + 2
+	s.histP, s.histF = make([]float64, n), make([]float64, n)
 	return s
+}
+
+// sense passes the airway pressure and the measured flow through the
+// sensor: a first-order low-pass per channel (discrete, at the sample
+// rate) and a pure delay (linear interpolation between samples).
+func (s *Sim) sense(paw, flow float64) (float64, float64) {
+	sn := &s.sc.Sensor
+	if sn.ideal() {
+		return paw, flow
+	}
+	if s.histN == 0 {
+		s.lagP, s.lagF = paw, flow
+	}
+	s.lagP += (paw - s.lagP) * s.alphaP
+	s.lagF += (flow - s.lagF) * s.alphaF
+	n := len(s.histP)
+	s.histP[s.histN%n], s.histF[s.histN%n] = s.lagP, s.lagF
+	s.histN++
+	return s.delayed(s.histP, sn.PawDelay), s.delayed(s.histF, sn.FlowDelay)
+}
+
+// delayed is the value d seconds before the latest in ring h.
+func (s *Sim) delayed(h []float64, d float64) float64 {
+	n := len(h)
+	back := d / s.dt
+	k := int(back)
+	frac := back - float64(k)
+	at := func(b int) float64 {
+		b = min(b, s.histN-1)
+		return h[(s.histN-1-b)%n]
+	}
+	return at(k)*(1-frac) + at(k+1)*frac
 }
 
 // RateHz is the sample rate.
@@ -116,7 +176,7 @@ func (s *Sim) Next(out *SimSample) bool {
 	open := s.sc.disconnectedAt(seconds(t))
 	if !s.started || (s.open && !open) {
 		s.started, s.open = true, false
-		s.v = 0
+		s.v, s.x = 0, lungState{pao: s.set.PEEP}
 		s.startBreath(t, false)
 	} else if open && !s.open {
 		s.open, s.inBr = true, false // the breath in progress is lost
@@ -127,13 +187,18 @@ func (s *Sim) Next(out *SimSample) bool {
 	}
 	pmus := s.pmus(t)
 	paw, vdot := s.airway(t, pmus)
-	out.T, out.PawTrue, out.FlowTrue, out.Open = t, paw, vdot*60, false
-	flow := vdot*60 + s.sc.Sensor.FlowDrift*t/3600
-	if paw > 0 {
-		flow += s.set.Leak * paw
+	measured := vdot * 60 // L/min
+	if s.ext {
+		_, f := s.rates(t, s.x)
+		measured = f.qv * 60
 	}
-	out.Paw = paw + s.noise(s.sc.Sensor.PawNoise)
-	out.Flow = flow + s.noise(s.sc.Sensor.FlowNoise)
+	out.T, out.PawTrue, out.FlowTrue, out.Open = t, paw, vdot*60, false
+	if paw > 0 {
+		measured += s.set.Leak * paw
+	}
+	pawM, flowM := s.sense(paw, measured)
+	out.Paw = pawM + s.noise(s.sc.Sensor.PawNoise)
+	out.Flow = flowM + s.sc.Sensor.FlowDrift*t/3600 + s.noise(s.sc.Sensor.FlowNoise)
 	if s.inBr {
 		s.cur.Peak = math.Max(s.cur.Peak, paw)
 		if pmus > 0 {
@@ -171,6 +236,10 @@ func (s *Sim) pmus(t float64) float64 {
 
 // airway returns airway pressure (cmH2O) and lung flow (L/s) at t.
 func (s *Sim) airway(t, pmus float64) (paw, vdot float64) {
+	if s.ext {
+		_, f := s.rates(t, s.x)
+		return f.pao, f.q
+	}
 	set := &s.set
 	switch {
 	case s.phase == phaseInsp && set.Mode == ModeVC:
@@ -200,6 +269,19 @@ func (s *Sim) advance(t0, t1 float64) {
 		te := math.Min(t1, ts+s.h)
 		if b := s.boundary(); b > ts && b < te {
 			te = b
+		}
+		if s.ext {
+			te = math.Min(te, ts+maxSubstepExt)
+			if k := s.kink(ts); k < te {
+				te = k
+			}
+			s.stepExt(ts, te)
+			ts = te
+			if s.inBr {
+				s.vMax = math.Max(s.vMax, s.v)
+			}
+			s.transitions(ts)
+			continue
 		}
 		s.step(ts, te)
 		ts = te
@@ -274,7 +356,7 @@ func (s *Sim) transitions(ts float64) {
 	case phasePause:
 		if ts >= s.pauseEnd-eps {
 			if s.inBr {
-				s.cur.Plateau = s.v/s.cl + set.PEEP - s.pmus(ts)
+				s.cur.Plateau, _ = s.airway(ts, s.pmus(ts))
 			}
 			s.toExp(ts)
 		}
@@ -301,6 +383,10 @@ func (s *Sim) transitions(ts float64) {
 }
 
 func (s *Sim) toExp(ts float64) {
+	if s.ext {
+		_, f := s.rates(ts, s.x)
+		s.pEnd = f.pao
+	}
 	s.phase, s.expStart, s.trigAt, s.prevVdot = phaseExp, ts, 0, -1
 }
 
@@ -319,11 +405,25 @@ func (s *Sim) startBreath(ts float64, triggered bool) {
 		c.TEnd = boundary
 		c.RR = 60 / (boundary - c.TStart)
 		c.VT = (s.vMax - s.vStart) * 1000
-		c.DP = c.VT / c.C
+		c.REq, c.CStatic = c.R, c.C
+		if s.ext {
+			c.REq = s.equivalentR(c.RR)
+			if dp := s.set.staticRecoil(s.vMax) - s.set.staticRecoil(s.vStart); dp > 0 {
+				c.CStatic = c.VT / dp
+			}
+		}
+		c.DP = c.VT / c.CStatic
 		s.truth(c)
 	}
+	wasExt := s.ext
 	s.set = s.sc.settingsAt(seconds(ts))
 	set := &s.set
+	s.ext = !set.ideal()
+	if s.ext && !wasExt {
+		paw, _ := s.airway(ts, s.pmus(ts))
+		s.x = lungState{v1: s.v, pao: paw}
+	}
+	s.sumQ2, s.sumQ3 = 0, 0
 	s.cl = set.C / 1000
 	s.decay = math.Exp(-s.h / (set.R * s.cl))
 	s.seq++
@@ -345,11 +445,25 @@ func (s *Sim) startBreath(ts float64, triggered bool) {
 		}
 		s.flowEnd = ts + tflow
 		s.pauseEnd = s.flowEnd + pause
+		if set.ValveTime > 0 {
+			// the valve's ramps take volume off the pattern: scale it back to VT
+			area := 0.0
+			const n = 1000
+			for i := range n {
+				area += s.ventFlow(ts+(float64(i)+0.5)*tflow/n) * tflow / n
+			}
+			s.flow0 *= vt / area
+			s.flowSlope *= vt / area
+		}
 	case ModePC:
 		s.inspEnd = ts + set.Ti
 	}
 	s.inBr = true
 	s.vStart, s.vMax = v0, math.Max(v0, s.v)
+	ipeep := v0 / s.cl
+	if s.ext {
+		ipeep = set.staticRecoil(v0)
+	}
 	s.cur = Truth{Seq: s.seq, TStart: boundary, Mode: set.Mode, R: set.R, C: set.C, PEEP: set.PEEP,
-		IPEEP: v0 / s.cl, Peak: math.Inf(-1), Plateau: math.NaN(), Triggered: triggered, Active: triggered}
+		IPEEP: ipeep, Peak: math.Inf(-1), Plateau: math.NaN(), Triggered: triggered, Active: triggered}
 }
