@@ -24,10 +24,14 @@ const (
 	FlagLeak                                   // leak above the configured limit
 	FlagIncompleteExhalation                   // expiratory flow not back to zero at the next start
 	FlagVariableFlow                           // inspiratory flow not constant: no rinsp, no stress index
+	FlagPlateauUnsettled                       // pressure still fell over the pause: pplat, dp and cstat are not static
+	FlagIntrinsicPEEP                          // alveolar pressure above PEEP at end expiration: dp and cstat use total PEEP
+	FlagSIUnreliable                           // the stress index's segment is too short or its fit poor
 	numFlags                 = iota
 )
 
-var flagWords = [numFlags]string{"no_plateau", "active_effort", "fit_unreliable", "gap", "leak", "incomplete_exhalation", "variable_flow"}
+var flagWords = [numFlags]string{"no_plateau", "active_effort", "fit_unreliable", "gap", "leak",
+	"incomplete_exhalation", "variable_flow", "plateau_unsettled", "intrinsic_peep", "si_unreliable"}
 
 // Words lists the flags' output words.
 func (f Flags) Words() []string {
@@ -84,8 +88,13 @@ type Breath struct {
 
 	MP    float64 // mechanical power, J/min (simplified formula)
 	SI    float64 // stress index
-	VTPBW float64 // vti per kg of predicted body weight, mL/kg
-	EEF   float64 // end-expiratory flow, L/min
+	E2Pct float64 // volume-dependent share of elastance, 100·E2·VT/(E1 + E2·VT), %
+	// PauseDecay is the pressure fall over the end-inspiratory pause,
+	// cmH2O; NaN without a pause.
+	PauseDecay float64
+	PEEPi      float64 // intrinsic PEEP from the equation of motion at end expiration, cmH2O
+	VTPBW      float64 // vti per kg of predicted body weight, mL/kg
+	EEF        float64 // end-expiratory flow, L/min
 
 	Flags Flags
 }
@@ -94,14 +103,52 @@ type Breath struct {
 // contract's names.
 var Fields = []string{"t_start", "t_end", "ti", "te", "rr", "ie", "vti", "vte", "leak",
 	"ppeak", "pplat", "peep", "pmean", "dp", "cstat", "cdyn", "rinsp",
-	"fit_r", "fit_c", "fit_p0", "fit_r2", "tau", "mp", "si", "vt_pbw", "eef"}
+	"fit_r", "fit_c", "fit_p0", "fit_r2", "tau", "mp", "si", "e2_pct", "pause_decay", "peepi", "vt_pbw", "eef"}
 
 // Values appends the numeric fields in the order of Fields.
 func (b *Breath) Values(dst []float64) []float64 {
 	return append(dst, b.TStart, b.TEnd, b.Ti, b.Te, b.RR, b.IE, b.VTi, b.VTe, b.Leak,
 		b.PPeak, b.PPlat, b.PEEP, b.PMean, b.DP, b.Cstat, b.Cdyn, b.Rinsp,
-		b.FitR, b.FitC, b.FitP0, b.FitR2, b.Tau, b.MP, b.SI, b.VTPBW, b.EEF)
+		b.FitR, b.FitC, b.FitP0, b.FitR2, b.Tau, b.MP, b.SI, b.E2Pct, b.PauseDecay, b.PEEPi, b.VTPBW, b.EEF)
 }
+
+// TrustedValues appends the numeric fields in the order of Fields, with
+// NaN for each value that the breath's flags say is not the lung's (see
+// Untrusted): what rolling statistics, rules and summaries take.
+func (b *Breath) TrustedValues(dst []float64) []float64 {
+	k := len(dst)
+	dst = b.Values(dst)
+	for i, f := range untrustedBy {
+		if b.Flags&f != 0 {
+			dst[k+i] = nan
+		}
+	}
+	return dst
+}
+
+// Untrusted reports whether the breath's flags say that the value of
+// Fields[i] is not the lung's.
+func (b *Breath) Untrusted(i int) bool { return b.Flags&untrustedBy[i] != 0 }
+
+// untrustedBy lists, for each field of Fields, the flags under which its
+// value is published but not taken as the lung's: the fitted mechanics
+// under effort or a poor fit, the plateau's numbers when it had not
+// settled or the patient pulled during it, the stress index when its
+// segment or fit is poor.
+var untrustedBy = func() []Flags {
+	fit := FlagFitUnreliable | FlagActiveEffort
+	plat := FlagPlateauUnsettled | FlagActiveEffort
+	by := map[string]Flags{
+		"pplat": plat, "dp": plat, "cstat": plat, "rinsp": plat,
+		"fit_r": fit, "fit_c": fit, "fit_p0": fit, "tau": fit, "e2_pct": fit, "peepi": fit,
+		"si": fit | FlagSIUnreliable,
+	}
+	out := make([]Flags, len(Fields))
+	for i, f := range Fields {
+		out[i] = by[f]
+	}
+	return out
+}()
 
 // Field returns a numeric field by its contract name, and false for an
 // unknown name.
@@ -110,7 +157,7 @@ func (b *Breath) Field(name string) (float64, bool) {
 	if i < 0 {
 		return math.NaN(), false
 	}
-	var buf [32]float64
+	var buf [40]float64
 	return b.Values(buf[:0])[i], true
 }
 

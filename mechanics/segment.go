@@ -9,10 +9,10 @@ import (
 // Config tunes breath detection and the per-breath metrics. The zero value
 // of a field means its default (see Defaults).
 type Config struct {
-	StartFlow  float64 // inspiration starts when flow rises above this, L/min; default 5
+	StartFlow  float64 // an inflation may start when flow rises above this, L/min; default 5
 	EndFlow    float64 // inspiratory flow has ended below this, L/min; default 3
 	PauseFlow  float64 // |flow| below this after inspiration is a pause, L/min; default 3
-	ExpFlow    float64 // expiration starts when flow falls below −ExpFlow, L/min; default 3
+	ExpFlow    float64 // expiration may start when flow falls below −ExpFlow, L/min; default 3
 	MinInsp    float64 // shortest inspiration, s; default 0.15
 	MinExp     float64 // shortest expiration before the next start, s; default 0.2
 	MinPause   float64 // shortest pause that gives a plateau, s; default 0.1
@@ -22,9 +22,35 @@ type Config struct {
 	FitR2Min   float64 // a fit below this R² is unreliable; default 0.95
 	LeakLimit  float64 // flag a leak above this, %; default 15
 	EEFLimit   float64 // flag incomplete exhalation when end-expiratory flow is below −EEFLimit, L/min; default 5
-	TriggerDip float64 // a pressure drop this deep before a start is the patient's effort, cmH2O; default 0.5
-	Sex        string  // male or female, for predicted body weight; "" for none
-	HeightCm   float64 // cm, with Sex
+	TriggerDip float64 // a pressure drop this deep while flow turns inward is the patient's effort, cmH2O; default 0.5
+
+	// An inflation is a breath only when it carries at least MinVT mL
+	// (default 40) and raises the airway pressure by at least MinRise
+	// cmH2O (default 2), and both are at least RelMin (default 0.25) of
+	// the recent breaths' median volume and pressure swing: expiratory
+	// flow humps, bias flow and noise are not breaths.
+	MinVT   float64
+	MinRise float64
+	RelMin  float64
+
+	PauseDecayLimit float64 // flag plateau_unsettled above this pause_decay, cmH2O; default 0.5
+	PEEPiMin        float64 // intrinsic PEEP from this is present: intrinsic_peep, and dp against total PEEP, cmH2O; default 0.5
+
+	// CircuitCompliance is the breathing circuit's compliance, mL/cmH2O
+	// (adult circuits about 1–2): with flow measured at the ventilator,
+	// the gas compressed in the circuit is removed from the volumes and
+	// the fits. Default 0: flow is measured at the airway.
+	CircuitCompliance float64
+
+	// FlowDelay is how far the flow channel lags the pressure channel, s
+	// (negative: it leads). It is estimated from the inflation onsets and
+	// the channels are aligned by it, unless FlowDelayFixed says to use
+	// FlowDelay as given (0: no alignment).
+	FlowDelay      float64
+	FlowDelayFixed bool
+
+	Sex      string  // male or female, for predicted body weight; "" for none
+	HeightCm float64 // cm, with Sex
 }
 
 // Defaults fills the unset fields.
@@ -48,12 +74,18 @@ func (c *Config) Defaults() {
 	def(&c.LeakLimit, 15)
 	def(&c.EEFLimit, 5)
 	def(&c.TriggerDip, 0.5)
+	def(&c.MinVT, 40)
+	def(&c.MinRise, 2)
+	def(&c.RelMin, 0.25)
+	def(&c.PauseDecayLimit, 0.5)
+	def(&c.PEEPiMin, 0.5)
 }
 
 // Validate reports the first unusable setting.
 func (c *Config) Validate() error {
 	for _, v := range []float64{c.StartFlow, c.EndFlow, c.PauseFlow, c.ExpFlow, c.MinInsp, c.MinExp,
-		c.MinPause, c.MaxBreath, c.OpenTime, c.FitR2Min, c.LeakLimit, c.EEFLimit, c.TriggerDip} {
+		c.MinPause, c.MaxBreath, c.OpenTime, c.FitR2Min, c.LeakLimit, c.EEFLimit, c.TriggerDip,
+		c.MinVT, c.MinRise, c.RelMin, c.PauseDecayLimit, c.PEEPiMin, c.CircuitCompliance} {
 		if math.IsNaN(v) || v < 0 {
 			return errors.New("detection thresholds must be positive numbers")
 		}
@@ -63,6 +95,15 @@ func (c *Config) Validate() error {
 	}
 	if c.MaxBreath > 120 {
 		return fmt.Errorf("max_breath %g s: at most 120", c.MaxBreath)
+	}
+	if c.RelMin > 0.9 {
+		return fmt.Errorf("rel_min %g: at most 0.9 of the recent breaths", c.RelMin)
+	}
+	if c.CircuitCompliance > 10 {
+		return fmt.Errorf("circuit compliance %g mL/cmH2O: at most 10", c.CircuitCompliance)
+	}
+	if math.IsNaN(c.FlowDelay) || math.Abs(c.FlowDelay) > maxDelay {
+		return fmt.Errorf("flow delay %g s: at most ±%g s", c.FlowDelay, maxDelay)
 	}
 	if c.Sex != "" || c.HeightCm != 0 {
 		if _, err := PredictedBodyWeight(c.Sex, c.HeightCm); err != nil {
@@ -81,17 +122,28 @@ type Drops struct {
 }
 
 const (
-	stSync     = iota // wait for a sample that is not inspiration
-	stWait            // no breath in progress: wait for a start
-	stInsp            // inspiratory flow
-	stPostInsp        // after inspiratory flow: pause or the turn to expiration
-	stExp             // expiration: wait for the next start
+	stSync = iota // wait for a sample that is not inspiration
+	stWait        // no breath in progress: wait for an inflation
+	stInsp        // a breath's inspiration: flow, then perhaps a pause
+	stExp         // expiration: wait for the next inflation
 )
 
 // Segmenter finds breaths in a stream of samples and computes each one's
 // metrics. It keeps the current breath's samples in a buffer allocated once
 // and reused: memory is constant and the per-sample path does not allocate.
 // It is not safe for concurrent use.
+//
+// A breath starts where an inflation starts. Flow above StartFlow opens a
+// candidate; it becomes a breath only once it has carried MinVT and raised
+// the pressure by MinRise (and RelMin of the recent breaths), and is
+// dropped when the flow falls back first — so a flow hump in expiration,
+// bias flow or noise stays inside the breath it belongs to. The start is
+// the onset of the steep rise of flow, or, when the patient's pull on the
+// circuit (pressure falling as flow turns inward) came first, where the
+// flow turned inward. Expiration starts where flow turns outward while the
+// pressure falls from its inspiratory level (or a quarter of the inspired
+// volume has left): flow that dips below zero while the ventilator still
+// holds the pressure is inspiration.
 type Segmenter struct {
 	cfg   Config
 	pbw   float64 // kg, 0 without a patient
@@ -99,13 +151,31 @@ type Segmenter struct {
 
 	t, paw, flow []float64 // samples since the breath (or the wait) began
 	n            int
-	inspEnd      int // index of the first sample after inspiratory flow
+	inspEnd      int // index of the first sample after inspiratory flow, −1 while it flows
 	expStart     int // index of the first expiratory sample
 	openSince    float64
 	open         bool
 	deadline     float64 // t[0] + MaxBreath in a breath, else +Inf
 	inspMin      float64 // t[0] + MinInsp in a breath
 
+	// the inflation being confirmed (cand ≥ 0) and the current breath's
+	// inspiration
+	cand      int     // candidate's first index, −1 for none
+	candPrev  int     // the state the candidate came from
+	candVol   float64 // volume since the candidate's start, L·min/s·… (flow × s, L/min·s)
+	candBase  float64 // airway pressure before the candidate, cmH2O
+	candMax   float64 // highest airway pressure since the candidate's start, cmH2O
+	inVol     float64 // inspired volume of the breath so far, L/min·s
+	outVol    float64 // volume of the current run of outward flow, L/min·s
+	pBase     float64 // the breath's pressure before its inflation, cmH2O
+	pTop      float64 // highest airway pressure of the inspiration, cmH2O
+	prevFlow  float64 // the previous sample's flow, L/min
+	prevT     float64
+	recentVT  ring8 // the last breaths' inspired volumes, mL
+	recentSw  ring8 // … and pressure swings ppeak − peep, cmH2O
+	recentR   ring8 // … and reliable fitted resistances, cmH2O·s/L
+	sigP      float64
+	sigF      float64 // pressure and flow noise (σ), cmH2O and L/min; NaN before the first breath
 	seq       int64
 	afterDrop bool    // the next breath follows a dropped one
 	nextDip   bool    // an effort was seen just before the breath in progress
@@ -114,6 +184,7 @@ type Segmenter struct {
 	out       Breath
 	si        siFit   // the stress-index fit's points, kept from breath to breath
 	lastSI    float64 // the previous stress index, where its fit starts; NaN for none
+	align     aligner // channel delay: estimate and alignment
 }
 
 // NewSegmenter returns a segmenter for samples arriving at about rateHz
@@ -128,7 +199,9 @@ func NewSegmenter(cfg Config, rateHz float64) (*Segmenter, error) {
 	}
 	size := int(math.Min(math.Max(cfg.MaxBreath*rateHz*1.5, 1024), 1<<18))
 	s := &Segmenter{cfg: cfg, t: make([]float64, size), paw: make([]float64, size), flow: make([]float64, size),
-		si: newSIFit(), openSince: math.NaN(), deadline: math.Inf(1), lastPEEP: math.NaN(), lastSI: math.NaN()}
+		si: newSIFit(), openSince: math.NaN(), deadline: math.Inf(1), lastPEEP: math.NaN(), lastSI: math.NaN(),
+		cand: -1, sigP: math.NaN(), sigF: math.NaN()}
+	s.align.init(cfg.FlowDelay, cfg.FlowDelayFixed)
 	if cfg.Sex != "" {
 		s.pbw, _ = PredictedBodyWeight(cfg.Sex, cfg.HeightCm)
 	}
@@ -145,6 +218,10 @@ func (s *Segmenter) Open() bool { return s.open }
 // Breaths is the number of breaths completed.
 func (s *Segmenter) Breaths() int64 { return s.seq }
 
+// Noise returns the pressure (cmH2O) and flow (L/min) noise, σ, measured
+// at the end of recent expirations; NaN before the first breath.
+func (s *Segmenter) Noise() (paw, flow float64) { return s.sigP, s.sigF }
+
 // Add takes one sample: time t (s), airway pressure paw (cmH2O), flow
 // (L/min, positive into the patient) and whether a gap came before it. It
 // returns the breath that this sample completed, or nil. The breath is
@@ -152,6 +229,11 @@ func (s *Segmenter) Breaths() int64 { return s.seq }
 func (s *Segmenter) Add(t, paw, flow float64, gap bool) *Breath {
 	if gap {
 		s.drop(&s.drops.Gap)
+		s.align.reset()
+	}
+	var ok bool
+	if paw, flow, ok = s.align.add(t, paw, flow); !ok {
+		return nil
 	}
 	if s.n == len(s.t) {
 		s.drop(&s.drops.TooLong)
@@ -159,6 +241,11 @@ func (s *Segmenter) Add(t, paw, flow float64, gap bool) *Breath {
 	k := s.n
 	s.t[k], s.paw[k], s.flow[k] = t, paw, flow
 	s.n++
+	dv := (flow + s.prevFlow) / 2 * (t - s.prevT) // L/min·s since the last sample
+	s.prevFlow, s.prevT = flow, t
+	if k == 0 {
+		dv = 0
+	}
 	if paw >= s.cfg.OpenPaw || math.Abs(flow) >= s.cfg.StartFlow {
 		s.open = false // the common case, without a call
 		s.openSince = nan
@@ -174,6 +261,9 @@ func (s *Segmenter) Add(t, paw, flow float64, gap bool) *Breath {
 		}
 		return nil
 	}
+	if s.cand >= 0 {
+		return s.candidate(k, paw, flow, dv)
+	}
 	c := &s.cfg
 	switch s.state {
 	case stSync:
@@ -183,35 +273,227 @@ func (s *Segmenter) Add(t, paw, flow float64, gap bool) *Breath {
 		s.keepLast(1)
 	case stWait:
 		if flow > c.StartFlow {
-			if j := s.riseStart(k, 0); j >= 0 {
-				s.begin(j)
-			} else {
-				s.drops.Restarts++
-				s.state = stSync
-			}
+			s.open1(k)
 		} else if s.n > 64 {
 			s.keepLast(16)
 		}
 	case stInsp:
-		if flow < c.EndFlow && t >= s.inspMin {
-			s.inspEnd, s.state = k, stPostInsp
-			if flow < -c.ExpFlow { // straight into expiration, no pause
-				s.expStart, s.state = k, stExp
-			}
-		}
-	case stPostInsp:
-		switch {
-		case flow < -c.ExpFlow:
-			s.expStart, s.state = k, stExp
-		case flow > c.StartFlow:
-			s.state = stInsp // flow resumed: still inspiration
-		}
+		s.inspiration(k, paw, flow, dv)
 	case stExp:
 		if flow > c.StartFlow && t-s.t[s.expStart] >= c.MinExp {
-			return s.finish(s.riseStart(k, s.expStart+1))
+			s.open1(k)
 		}
 	}
 	return nil
+}
+
+// open1 opens a candidate inflation whose flow passed StartFlow at k.
+func (s *Segmenter) open1(k int) {
+	lo := 0
+	if s.state == stExp {
+		lo = s.expStart + 1
+	}
+	j := s.riseStart(k, lo)
+	if j < 0 {
+		s.drops.Restarts++
+		s.state = stSync
+		return
+	}
+	s.cand, s.candPrev = j, s.state
+	s.candVol = 0
+	for i := j; i < k; i++ {
+		s.candVol += (s.flow[i] + s.flow[i+1]) / 2 * (s.t[i+1] - s.t[i])
+	}
+	s.candBase = s.paw[j-1]
+	if j >= 3 {
+		s.candBase = (s.paw[j-1] + s.paw[j-2] + s.paw[j-3]) / 3
+	}
+	s.candMax = s.paw[j]
+	for i := j + 1; i <= k; i++ {
+		s.candMax = max(s.candMax, s.paw[i])
+	}
+}
+
+// candidate follows an inflation until it is a breath or is given up.
+func (s *Segmenter) candidate(k int, paw, flow, dv float64) *Breath {
+	c := &s.cfg
+	s.candVol += dv
+	s.candMax = max(s.candMax, paw)
+	if k >= 2 && (flow+s.flow[k-1]+s.flow[k-2])/3 < c.EndFlow {
+		s.cand = -1 // the flow fell back: a hump, not a breath
+		return nil
+	}
+	vol := s.candVol / 60 * 1000 // mL
+	rise := s.candMax - s.candBase
+	if vol < c.MinVT || rise < c.MinRise {
+		return nil
+	}
+	if m := s.recentVT.median(); vol < c.RelMin*m {
+		return nil
+	}
+	if m := s.recentSw.median(); rise < c.RelMin*m {
+		return nil
+	}
+	j := s.onset(s.cand, k)
+	s.cand = -1
+	if s.candPrev == stWait {
+		s.begin(j)
+		return nil
+	}
+	return s.finish(j)
+}
+
+// onset refines the start of a confirmed inflation whose flow first rose
+// above StartFlow/5 at c: the foot of the steep rise to half its peak flow
+// so far, or c itself when the patient drew flow in during the
+// 0.2 s before that rise (see drawn; a trigger's delay is shorter, a slow
+// inflow that the ventilator's own pressure drives is not drawn): the
+// breath then starts where the patient began to inhale.
+func (s *Segmenter) onset(c, k int) int {
+	peak, low := s.flow[c], math.Inf(1)
+	for i := c + 1; i <= k; i++ {
+		peak = max(peak, s.flow[i])
+	}
+	m := c
+	for m < k && s.flow[m] < peak/2 {
+		low = min(low, s.flow[m])
+		m++
+	}
+	// back from half the peak to the foot of the rise: past the last
+	// sample at most a tenth of the way up from the lowest flow before it,
+	// then down the rise while it keeps falling and stays above zero flow
+	foot := low + 0.1*(peak-low)
+	for m > c && s.flow[m-1] > foot {
+		m--
+	}
+	for m > c && s.flow[m-1] < s.flow[m] && s.flow[m-1] > s.cfg.StartFlow/5 {
+		m--
+	}
+	if m > c && s.drawn(max(c, s.before(m, 0.2)), m+1, s.candBase) {
+		return c
+	}
+	return m
+}
+
+// before is the first sample index at most d seconds before sample i.
+func (s *Segmenter) before(i int, d float64) int {
+	j := i
+	for j > 0 && s.t[i]-s.t[j-1] <= d {
+		j--
+	}
+	return j
+}
+
+// drawn reports whether the patient drew flow in during samples [lo, hi),
+// before the ventilator raised the airway pressure above base (the
+// pressure before the inflation). Two signs count, each against the
+// pressure noise (3-sample means of pressure, margin 1.5 times its σ, 2.6
+// times the mean's):
+//   - a trigger dip: inward flow above StartFlow/2 while the pressure is
+//     below base, for at least 2 samples and 10 ms (the patient pulls on
+//     the circuit: Thille et al., Intensive Care Med 2006;32:1515);
+//   - unsupported flow: inward flow above StartFlow (and three times the
+//     flow noise) while the pressure has not risen above base and stays
+//     below base plus 0.8 of the recent breaths' resistance times the
+//     flow, for at least 2 samples and 10 ms. A passive lung only fills
+//     when the airway pressure exceeds the alveolar pressure, itself at
+//     or above PEEP, by R·V'; more flow than that means the patient's
+//     muscles drew it in (the equation of motion with Pmus; Bates 2009,
+//     ch. 3). Two samples: a skew of one sample between the channels,
+//     left after their alignment, is not an effort.
+func (s *Segmenter) drawn(lo, hi int, base float64) bool {
+	r := s.recentR.median() * 0.8
+	margin := max(0.2, 1.5*s.noiseP())
+	inflow := max(s.cfg.StartFlow, 3*s.noiseF())
+	dip, flat := -1, -1 // where each run of the condition began
+	for i := max(lo, 1); i < hi && i+1 < s.n; i++ {
+		p := (s.paw[i-1] + s.paw[i] + s.paw[i+1]) / 3
+		f := s.flow[i]
+		if f > s.cfg.StartFlow/2 && base-p > margin {
+			if dip < 0 {
+				dip = i
+			}
+			if i >= dip+1 && s.t[i]-s.t[dip] >= 0.01-1e-9 {
+				return true
+			}
+		} else {
+			dip = -1
+		}
+		if f > inflow && p-base < margin && base+r*f/60-p > margin {
+			if flat < 0 {
+				flat = i
+			}
+			if i > flat && s.t[i]-s.t[flat] >= 0.01-1e-9 {
+				return true
+			}
+		} else {
+			flat = -1
+		}
+	}
+	return false
+}
+
+// inspiration follows a breath's inspiration to its end: expiration is
+// confirmed at k when flow is outward and either the pressure has fallen
+// below the middle of its swing or a quarter of the inspired volume has
+// gone out; it starts where the ventilator let go of the pressure (see
+// valveOpening).
+func (s *Segmenter) inspiration(k int, paw, flow, dv float64) {
+	c := &s.cfg
+	s.pTop = max(s.pTop, paw)
+	if flow >= 0 {
+		s.outVol = 0
+	} else {
+		s.outVol -= dv
+	}
+	s.inVol += dv
+	switch {
+	case flow > c.StartFlow:
+		s.inspEnd = -1 // flow resumed: still inspiration
+	case s.inspEnd < 0 && flow < c.EndFlow && s.t[k] >= s.inspMin:
+		s.inspEnd = k
+	}
+	if flow >= -c.ExpFlow || s.t[k] < s.inspMin {
+		return
+	}
+	falling := paw < (s.pTop+s.pBase)/2
+	if !falling && s.outVol < s.inVol/4 {
+		return
+	}
+	e := s.valveOpening(k)
+	if s.inspEnd < 0 || s.inspEnd > e {
+		s.inspEnd = e
+	}
+	s.expStart, s.state = e, stExp
+	s.align.settle()
+}
+
+// valveOpening finds the first expiratory sample for an expiration
+// confirmed at k: the sample of the steepest pressure fall with outward
+// flow in the last 0.3 s — where the ventilator let go of the pressure —
+// walked back over the samples of that same fall; without such a fall
+// (at least 1 cmH2O in a sample), the start of the run of outward flow
+// that ends at k.
+func (s *Segmenter) valveOpening(k int) int {
+	c := &s.cfg
+	best, drop := -1, 1.0
+	for i := k; i > 1 && s.t[k]-s.t[i] <= 0.3 && s.t[i-1] >= s.inspMin; i-- {
+		if d := s.paw[i-1] - s.paw[i]; d >= drop && s.flow[i] < -c.ExpFlow {
+			best, drop = i, d
+		}
+	}
+	if best > 0 {
+		for best > 1 && s.paw[best-2]-s.paw[best-1] >= drop/2 && s.flow[best-1] < -c.ExpFlow {
+			best--
+		}
+		return best
+	}
+	tol := max(0.5, 2*s.noiseF())
+	e := k
+	for e > 1 && s.flow[e-1] < -tol {
+		e--
+	}
+	return e
 }
 
 // checkOpen tracks time with pressure below OpenPaw and flow under
@@ -248,6 +530,13 @@ func (s *Segmenter) begin(j int) {
 	s.shift(j)
 	s.state, s.inspEnd, s.expStart = stInsp, -1, -1
 	s.deadline, s.inspMin = s.t[0]+s.cfg.MaxBreath, s.t[0]+s.cfg.MinInsp
+	s.pBase = s.candBase
+	s.pTop, s.inVol, s.outVol = s.paw[0], 0, 0
+	for i := 1; i < s.n; i++ {
+		s.pTop = max(s.pTop, s.paw[i])
+		s.inVol += (s.flow[i] + s.flow[i-1]) / 2 * (s.t[i] - s.t[i-1])
+	}
+	s.align.onset(s.n)
 }
 
 // finish computes the breath that ends at index j (the next start), starts
@@ -261,6 +550,12 @@ func (s *Segmenter) finish(j int) *Breath {
 		b.Flags |= FlagGap
 		s.afterDrop = false
 	}
+	s.align.accept(b.Reliable())
+	s.recentVT.add(b.VTi)
+	s.recentSw.add(b.PPeak - b.PEEP)
+	if b.Reliable() {
+		s.recentR.add(b.FitR)
+	}
 	s.begin(j)
 	return b
 }
@@ -271,8 +566,9 @@ func (s *Segmenter) drop(counter *int64) {
 		*counter++
 		s.afterDrop = true
 	}
-	s.state, s.n, s.nextDip, s.lastPEEP = stSync, 0, false, math.NaN()
+	s.state, s.n, s.nextDip, s.lastPEEP, s.cand = stSync, 0, false, math.NaN(), -1
 	s.deadline = math.Inf(1)
+	s.recentVT, s.recentSw, s.recentR = ring8{}, ring8{}, ring8{}
 }
 
 // shift moves samples [j, n) to the front of the buffer.
@@ -281,6 +577,9 @@ func (s *Segmenter) shift(j int) {
 	copy(s.paw, s.paw[j:s.n])
 	copy(s.flow, s.flow[j:s.n])
 	s.n -= j
+	if s.cand >= 0 {
+		s.cand -= j
+	}
 }
 
 // keepLast keeps the last m samples.
@@ -288,4 +587,48 @@ func (s *Segmenter) keepLast(m int) {
 	if s.n > m {
 		s.shift(s.n - m)
 	}
+}
+
+// noiseP and noiseF are the noise estimates, 0 before the first breath.
+func (s *Segmenter) noiseP() float64 {
+	if math.IsNaN(s.sigP) {
+		return 0
+	}
+	return s.sigP
+}
+
+func (s *Segmenter) noiseF() float64 {
+	if math.IsNaN(s.sigF) {
+		return 0
+	}
+	return s.sigF
+}
+
+// ring8 keeps the last eight values of a per-breath quantity.
+type ring8 struct {
+	v [8]float64
+	n int
+}
+
+func (r *ring8) add(x float64) {
+	if math.IsNaN(x) {
+		return
+	}
+	r.v[r.n%len(r.v)] = x
+	r.n++
+}
+
+// median of the values kept; 0 for none.
+func (r *ring8) median() float64 {
+	m := min(r.n, len(r.v))
+	if m == 0 {
+		return 0
+	}
+	var x [8]float64
+	copy(x[:], r.v[:m])
+	sortSmall(x[:m])
+	if m%2 == 1 {
+		return x[m/2]
+	}
+	return (x[m/2-1] + x[m/2]) / 2
 }

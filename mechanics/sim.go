@@ -9,18 +9,18 @@ import (
 // Truth is what the simulator knows about one breath, for comparing with
 // what breathd measures.
 type Truth struct {
-	Seq       int     // breath number, from 1
-	TStart    float64 // s
-	TEnd      float64 // s, the next breath's start
-	Mode      string  // vc, pc or ps
-	R         float64 // set (central airway) resistance, cmH2O·s/L
-	C         float64 // set compliance (of the first compartment), mL/cmH2O
+	Seq    int     // breath number, from 1
+	TStart float64 // s
+	TEnd   float64 // s, the next breath's start
+	Mode   string  // vc, pc or ps
+	R      float64 // set (central airway) resistance, cmH2O·s/L
+	C      float64 // set compliance (of the first compartment), mL/cmH2O
 	// REq is the resistance of the single compartment that matches the
 	// lung at this breath's rate (R for the ideal lung), cmH2O·s/L.
 	REq float64
 	// CStatic is the static compliance over the breath, VT over the rise
 	// of the lung's static recoil (C for the ideal lung), mL/cmH2O.
-	CStatic float64
+	CStatic   float64
 	PEEP      float64 // set PEEP, cmH2O
 	IPEEP     float64 // intrinsic PEEP at the breath's start (static recoil above PEEP), cmH2O
 	VT        float64 // volume into the lung, mL

@@ -197,8 +197,8 @@ func TestStressIndexOfKnownCurves(t *testing.T) {
 			s.t[i], s.flow[i] = ti, 40
 			s.paw[i] = 15 + 12*math.Pow(ti, want)
 		}
-		got := s.stressIndex(n)
-		if !near(got, want, 0.002) {
+		got, r2 := s.stressIndex(1, n+1, 0)
+		if !near(got, want, 0.002) || !near(r2, 1, 1e-9) {
 			t.Errorf("stress index %.4f, want %.2f", got, want)
 		}
 	}
@@ -206,10 +206,13 @@ func TestStressIndexOfKnownCurves(t *testing.T) {
 
 // TestActiveBreathsFlagged: a patient breathing on pressure support makes
 // the equation-of-motion fit unreliable; those breaths are flagged, and a
-// passive patient's are not.
+// passive patient's are not. The exhalation valve has a resistance of 4
+// cmH2O·s/L, so that the patient's pull lowers the airway pressure before
+// the ventilator responds, as it does through a real circuit (a valve that
+// holds PEEP exactly whatever the flow is not physical).
 func TestActiveBreathsFlagged(t *testing.T) {
 	active := Scenario{Seed: 4, RateHz: 100, Duration: 10 * time.Minute, Settings: Settings{
-		Mode: ModePS, R: 10, C: 50, PEEP: 5, RR: 8, PInsp: 10, Rise: 0.1,
+		Mode: ModePS, R: 10, C: 50, PEEP: 5, RR: 8, PInsp: 10, Rise: 0.1, ValveR: 4,
 		EffortRate: 20, EffortP: 6, EffortTime: 0.9}, Sensor: Sensor{PawNoise: 0.2, FlowNoise: 0.5}}
 	pairs, _, _ := runSim(t, active, Config{})
 	flagged := 0
@@ -276,7 +279,7 @@ func TestStressIndexNewtonAgainstBrent(t *testing.T) {
 			syy += py[k] * py[k]
 		}
 		f := siFit{lt: lt, xs: make([]float64, len(lt)), at: math.NaN(), lmax: -math.Log(1.0 / 48)}
-		got, ok := f.newton(py, prev)
+		got, _, ok := f.newton(py, prev)
 		ref := siBrent(lt, py, syy)
 		if !ok {
 			fallbacks++

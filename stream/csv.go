@@ -14,7 +14,8 @@ import (
 var csvDecimals = map[string]int{
 	"t_start": 3, "t_end": 3, "ti": 3, "te": 3, "rr": 2, "ie": 2, "vti": 1, "vte": 1, "leak": 1,
 	"ppeak": 2, "pplat": 2, "peep": 2, "pmean": 2, "dp": 2, "cstat": 2, "cdyn": 2, "rinsp": 2,
-	"fit_r": 2, "fit_c": 2, "fit_p0": 2, "fit_r2": 4, "tau": 3, "mp": 2, "si": 3, "vt_pbw": 2, "eef": 2,
+	"fit_r": 2, "fit_c": 2, "fit_p0": 2, "fit_r2": 4, "tau": 3, "mp": 2, "si": 3, "e2_pct": 1, "pause_decay": 2,
+	"peepi": 2, "vt_pbw": 2, "eef": 2,
 }
 
 // CSVWriter writes one row per breath: seq, the fields of

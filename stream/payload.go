@@ -58,7 +58,7 @@ func EventJSON(ev *alerts.Event) []byte {
 // mechanics.Fields under their names (null when not computed), seq and
 // flags.
 func BreathJSON(device string, b *mechanics.Breath, at time.Time) []byte {
-	var vals [32]float64
+	var vals [40]float64
 	v := b.Values(vals[:0])
 	m := make(map[string]any, len(v)+5)
 	m["v"], m["device"], m["seq"], m["at"] = PayloadVersion, device, b.Seq, at.UTC().Format(time.RFC3339Nano)

@@ -1,0 +1,255 @@
+package mechanics
+
+import "math"
+
+// siPoints is about the most samples the stress-index fit uses.
+const siPoints = 48
+
+// stressIndex fits Paw = a·t^b + c over samples [lo, hi] of a
+// constant-flow inflation, t from origin (the flow's half-rise), and
+// returns b (Ranieri et al., Anesthesiology 2000;93:1320) and the fit's
+// R². For each b the fit is linear in a and c; b minimises the residual
+// over [0.2, 5]: by Newton's method from the previous breath's exponent,
+// else by Brent's method to 0.002, with t^b as exp(b·ln t) from logarithms
+// taken once; above 2·siPoints samples, every k-th so that about siPoints
+// remain.
+func (s *Segmenter) stressIndex(lo, hi int, origin float64) (b, r2 float64) {
+	if hi-lo < 6 || s.t[lo] <= origin {
+		return nan, nan
+	}
+	step := max(1, (hi-lo)/siPoints)
+	si := &s.si
+	m := 0
+	same := true // the same times from the origin as the last breath's
+	for i := lo; i < hi; i += step {
+		d := s.t[i] - origin
+		same = same && m < len(si.d) && math.Abs(d-si.d[m]) <= 1e-9*d
+		si.py[m] = s.paw[i]
+		m++
+	}
+	if !same || m != len(si.d) {
+		// new times: their logarithms, and no exponentials to start from
+		si.d, si.lt, si.xs = si.d[:m], si.lt[:m], si.xs[:m]
+		si.lmax = 0
+		for k, i := 0, lo; i < hi; k, i = k+1, i+step {
+			si.d[k] = s.t[i] - origin
+			si.lt[k] = math.Log(si.d[k])
+			si.lmax = max(si.lmax, math.Abs(si.lt[k]))
+		}
+		si.at = nan
+	}
+	py := si.py[:m]
+	var my float64
+	for _, p := range py {
+		my += p
+	}
+	my /= float64(m)
+	var syy float64
+	for k := range py {
+		py[k] -= my
+		syy += py[k] * py[k]
+	}
+	b, g, ok := si.newton(py, s.lastSI)
+	if !ok {
+		b = siBrent(si.lt, py, syy)
+		g = syy - siSSE(si.lt, py, syy, b)
+	}
+	s.lastSI = b
+	return b, g / syy
+}
+
+// siSSE is the residual sum of squares of the best a, c for exponent b:
+// syy − sxy²/sxx, x = t^b.
+func siSSE(lt, py []float64, syy, b float64) float64 {
+	n := float64(len(lt))
+	var sx, sxx, sxy float64
+	for k, l := range lt {
+		x := math.Exp(b * l)
+		sx += x
+		sxx += x * x
+		sxy += x * py[k]
+	}
+	sxx -= sx * sx / n
+	if sxx <= 0 {
+		return math.Inf(1)
+	}
+	return syy - sxy*sxy/sxx
+}
+
+// siFit keeps what one breath's stress-index fit leaves for the next: at a
+// steady rate and inspiratory time the sample times from the breath's
+// start repeat, and so do their logarithms, and the exponentials of the
+// last Newton step are the next breath's starting point.
+type siFit struct {
+	d, lt, xs, py []float64 // time from the start (s), its log, e^(at·lt), pressure
+	at            float64   // the exponent xs holds, NaN for none
+	lmax          float64   // the largest |lt|
+	series        int       // steps taken by the series since xs were exact
+}
+
+func newSIFit() siFit {
+	const n = 2*siPoints + 2
+	return siFit{d: make([]float64, 0, n), lt: make([]float64, 0, n), xs: make([]float64, 0, n),
+		py: make([]float64, n), at: nan}
+}
+
+// siBrent finds the stress-index exponent by Brent's method over [0.2, 5]
+// on the residual of the best a, c for exponent b: syy − sxy²/sxx.
+func siBrent(lt, py []float64, syy float64) float64 {
+	sse := func(b float64) float64 { return siSSE(lt, py, syy, b) }
+	b, _ := minimize(sse, 0.2, 5, 2e-3)
+	return b
+}
+
+// newton finds the stress-index exponent by Newton's method from b0
+// (the previous breath's, NaN for none), on the explained sum of squares
+// g(b) = P²/Q, P = Σ x·y, Q = Σ x² − (Σ x)²/n, x = e^(b·l), y centred —
+// the residual is syy − g, so its minimum is g's maximum. Each step takes
+// one exponential per point, against a dozen for Brent's method over the
+// whole range, and a small step none: the next e^(b·l) is the last
+// times a short series — also from one breath to the next, whose times
+// from the start are the same (f keeps them). Where g is not concave at b0 it starts again from 1; ok is
+// false when a step fails (g not concave, out of [0.2, 5], no convergence
+// in 12 steps), and the caller falls back to Brent.
+func (f *siFit) newton(py []float64, b0 float64) (b, explained float64, ok bool) {
+	lt, xs := f.lt, f.xs
+	b = b0
+	if math.IsNaN(b) || b < 0.3 || b > 4.5 {
+		b = 1
+	}
+	n := float64(len(lt))
+	for range 12 {
+		if step := b - f.at; math.Abs(step)*f.lmax <= 0.12 && f.series < 32 {
+			// near the exponent xs hold, e^(b·l) from them by a series:
+			// |step·l| ≤ 0.12 leaves its remainder under 1e-10, and after
+			// 32 such steps they are taken afresh
+			for k, l := range lt {
+				d := step * l
+				xs[k] *= 1 + d*(1+d*(1.0/2+d*(1.0/6+d*(1.0/24+d*(1.0/120+d*(1.0/720))))))
+			}
+			f.series++
+		} else {
+			for k, l := range lt {
+				xs[k] = math.Exp(b * l)
+			}
+			f.series = 0
+		}
+		f.at = b
+		var sx, slx, sllx, sxx, slxx, sllxx, p, sp, spp float64
+		for k, x := range xs {
+			l, y := lt[k], py[k]
+			lx, xx, xy := l*x, x*x, x*y
+			sx += x
+			slx += lx
+			sllx += l * lx
+			sxx += xx
+			slxx += l * xx
+			sllxx += l * l * xx
+			p += xy
+			sp += l * xy
+			spp += l * l * xy
+		}
+		q := sxx - sx*sx/n
+		q1 := 2*slxx - 2*sx*slx/n
+		q2 := 4*sllxx - 2*(slx*slx+sx*sllx)/n
+		if q <= 0 {
+			return nan, nan, false
+		}
+		explained = p * p / q // at the last exponent: within 1e-3 of b
+		g1 := (2*p*sp*q - p*p*q1) / (q * q)
+		g2 := (2*sp*sp+2*p*spp)/q - 4*p*sp*q1/(q*q) - p*p*q2/(q*q) + 2*p*p*q1*q1/(q*q*q)
+		if !(g2 < 0) {
+			if b != b0 || math.IsNaN(b0) {
+				return nan, nan, false
+			}
+			b, b0 = 1, nan // far from the previous exponent: once more from 1
+			continue
+		}
+		step := max(-0.25, min(0.25, -g1/g2)) // damped far away
+		b += step
+		if b < 0.2 || b > 5 || math.IsNaN(b) {
+			return nan, nan, false
+		}
+		if math.Abs(step) < 1e-3 {
+			// Newton's error squares at each step: one this small
+			// leaves about its square, under 1e-6
+			return b, explained, true
+		}
+	}
+	return nan, nan, false
+}
+
+// minimize finds a minimum of f on [a, b] to within about tol by Brent's
+// method (Brent, Algorithms for Minimization without Derivatives, 1973,
+// ch. 5): parabolic steps where they behave, golden-section steps where
+// they do not. It returns the point and the number of evaluations.
+func minimize(f func(float64) float64, a, b, tol float64) (float64, int) {
+	const c = 0.3819660112501051 // (3 − √5)/2
+	x := a + c*(b-a)
+	w, v := x, x
+	fx := f(x)
+	fw, fv := fx, fx
+	evals := 1
+	var d, e float64
+	for evals < 100 {
+		m := (a + b) / 2
+		tol1 := 1e-10*math.Abs(x) + tol/3
+		tol2 := 2 * tol1
+		if math.Abs(x-m) <= tol2-(b-a)/2 {
+			break
+		}
+		parabolic := false
+		if math.Abs(e) > tol1 {
+			r := (x - w) * (fx - fv)
+			q := (x - v) * (fx - fw)
+			p := (x-v)*q - (x-w)*r
+			q = 2 * (q - r)
+			if q > 0 {
+				p = -p
+			} else {
+				q = -q
+			}
+			if math.Abs(p) < math.Abs(q*e/2) && p > q*(a-x) && p < q*(b-x) {
+				e, d = d, p/q
+				parabolic = true
+				if u := x + d; u-a < tol2 || b-u < tol2 {
+					d = math.Copysign(tol1, m-x)
+				}
+			}
+		}
+		if !parabolic {
+			if x < m {
+				e = b - x
+			} else {
+				e = a - x
+			}
+			d = c * e
+		}
+		u := x + d
+		if math.Abs(d) < tol1 {
+			u = x + math.Copysign(tol1, d)
+		}
+		fu := f(u)
+		evals++
+		if fu <= fx {
+			if u < x {
+				b = x
+			} else {
+				a = x
+			}
+			v, fv, w, fw, x, fx = w, fw, x, fx, u, fu
+			continue
+		}
+		if u < x {
+			a = u
+		} else {
+			b = u
+		}
+		if fu <= fw || w == x {
+			v, fv, w, fw = w, fw, u, fu
+		} else if fu <= fv || v == x || v == w {
+			v, fv = u, fu
+		}
+	}
+	return x, evals
+}
