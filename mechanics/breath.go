@@ -134,14 +134,16 @@ func (b *Breath) Untrusted(i int) bool { return b.Flags&untrustedBy[i] != 0 }
 // value is published but not taken as the lung's: the fitted mechanics
 // under effort or a poor fit, the plateau's numbers when it had not
 // settled or the patient pulled during it, the stress index when its
-// segment or fit is poor.
+// segment or fit is poor or the pause shows that the lung's pressure
+// depends on time (pendelluft, stress relaxation), which bends the
+// pressure of a constant-flow inflation as a change of compliance would.
 var untrustedBy = func() []Flags {
 	fit := FlagFitUnreliable | FlagActiveEffort
 	plat := FlagPlateauUnsettled | FlagActiveEffort
 	by := map[string]Flags{
 		"pplat": plat, "dp": plat, "cstat": plat, "rinsp": plat,
 		"fit_r": fit, "fit_c": fit, "fit_p0": fit, "tau": fit, "e2_pct": fit, "peepi": fit,
-		"si": fit | FlagSIUnreliable,
+		"si": fit | FlagSIUnreliable | FlagPlateauUnsettled,
 	}
 	out := make([]Flags, len(Fields))
 	for i, f := range Fields {

@@ -35,6 +35,7 @@ type aligner struct {
 	lagP, lagF int   // samples by which pressure / flow are delayed
 	fixed      bool
 	want       float64 // fixed: the delay to apply, s
+	circuit    float64 // the circuit's compliance, L/cmH2O: its gas is not the lung's
 
 	onsetRaw int64 // raw index of the latest onset, −1 for none
 	estAt    int64 // the raw count at which to estimate it
@@ -47,8 +48,8 @@ type aligner struct {
 	pendF    int
 }
 
-func (a *aligner) init(delay float64, fixed bool) {
-	a.fixed, a.want = fixed, delay
+func (a *aligner) init(delay float64, fixed bool, circuit float64) {
+	a.fixed, a.want, a.circuit = fixed, delay, circuit/1000
 	a.delay, a.pending = nan, nan
 	if fixed {
 		a.delay = delay
@@ -124,7 +125,7 @@ func (a *aligner) estimate() {
 	var ss [3]float64 // residuals at best−1, best, best+1
 	prev := math.NaN()
 	for lag := -maxLag; lag <= maxLag; lag++ {
-		r := eomResidual(&a.rp, &a.rf, o-pre, o+post, lag, dt)
+		r := eomResidual(&a.rp, &a.rf, o-pre, o+post, lag, dt, a.circuit)
 		if r < bestS {
 			best, bestS = lag, r
 			ss[0], ss[1], ss[2] = prev, r, math.NaN()
@@ -175,19 +176,25 @@ func (a *aligner) accept(passive bool) {
 
 // eomResidual is the residual sum of squares of Paw = R·V' + E·V + P0
 // over raw samples [lo, hi] with the flow taken lag samples later, V its
-// trapezoid integral from lo, dt the sample interval; +Inf when the fit
-// is singular.
-func eomResidual(p, f *[alignSize]float64, lo, hi, lag int64, dt float64) float64 {
+// trapezoid integral from lo, dt the sample interval; with a circuit of
+// compliance cc (L/cmH2O) its gas, cc·ΔPaw and cc·Paw', is taken off the
+// volume and the flow; +Inf when the fit is singular.
+func eomResidual(p, f *[alignSize]float64, lo, hi, lag int64, dt, cc float64) float64 {
 	const k = alignSize - 1
 	var a eomSums
 	var v float64
-	f0, p0 := f[(lo+lag)&k], p[lo&k]
+	f0, p0 := f[(lo+lag)&k]/60, p[lo&k]
 	prev := f0
 	for i := lo; i <= hi; i++ {
-		x1 := f[(i+lag)&k]
-		v += (prev + x1) / 2 * dt
-		prev = x1
-		a.add(x1-f0, v, v*v, p[i&k]-p0)
+		q := f[(i+lag)&k] / 60 // L/s
+		v += (prev + q) / 2 * dt
+		prev = q
+		y := p[i&k] - p0
+		x1, x2 := q-f0, v-cc*y
+		if cc > 0 {
+			x1 -= cc * (p[(i+1)&k] - p[(i-1)&k]) / (2 * dt)
+		}
+		a.add(x1, x2, x2*x2, y)
 	}
 	a.centre(float64(hi - lo + 1))
 	if _, _, ssr, ok := a.linear(); ok {

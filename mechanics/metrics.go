@@ -148,9 +148,14 @@ func (s *Segmenter) compute(b *Breath, j int) {
 
 	b.SI = nan
 	if hi >= 0 && b.Reliable() {
-		var r2 float64
-		b.SI, r2 = s.stressIndexOf(lo, hi, level)
-		if math.IsNaN(b.SI) || r2 < siR2Min {
+		var r2, se float64
+		b.SI, r2, se = s.stressIndexOf(lo, hi, level)
+		// a slow oscillation bends the ramp: on the simulator a cardiac
+		// ripple of 6 % of the ramp's rise moved the index by up to 0.45,
+		// so one over 1.25 % leaves it unable to tell 1 from 0.9 (our
+		// choice, from the simulator; no source)
+		rippled := s.ripple() > 0.0125*(paw[hi]-paw[lo])
+		if math.IsNaN(b.SI) || r2 < siR2Min || siUndecided(b.SI, se) || rippled {
 			b.Flags |= FlagSIUnreliable
 		}
 	}
@@ -166,11 +171,22 @@ func (s *Segmenter) compute(b *Breath, j int) {
 // source).
 const siR2Min = 0.98
 
+// siUndecided reports a stress index outside 0.90–1.10 that is within
+// 2.5 standard errors of it: the breath cannot tell which side it is on
+// (the band from Ranieri et al., Anesthesiology 2000;93:1320; the 2.5
+// standard errors our choice, common practice, no source).
+func siUndecided(si, se float64) bool {
+	if math.IsNaN(se) {
+		return true
+	}
+	return (si < 0.9 && si > 0.9-2.5*se) || (si > 1.1 && si < 1.1+2.5*se)
+}
+
 // stressIndexOf is the stress index of the flat-flow segment [lo, hi] at
 // flow level: time from the flow's half-rise, over the segment without its
 // first tenth of the inflation (where the pressure still takes its
 // resistive step), NaN when under 8 samples or 0.2 s remain.
-func (s *Segmenter) stressIndexOf(lo, hi int, level float64) (float64, float64) {
+func (s *Segmenter) stressIndexOf(lo, hi int, level float64) (si, r2, se float64) {
 	t := s.t
 	h := 0
 	for h < lo && s.flow[h] < level/2 {
@@ -192,7 +208,7 @@ func (s *Segmenter) stressIndexOf(lo, hi int, level float64) (float64, float64) 
 		lo++
 	}
 	if hi-lo < 8 || t[hi]-t[lo] < 0.2 {
-		return nan, nan
+		return nan, nan, nan
 	}
 	return s.stressIndex(lo, hi+1, origin)
 }
@@ -275,7 +291,9 @@ func (s *Segmenter) plateau(from, e int) (pplat, decay float64) {
 // measureNoise updates the pressure and flow noise from the last half
 // second (at most half) of expiration [e, j): the mean absolute second
 // difference, which a slow signal hardly moves, over its expectation for
-// white noise, √6·√(2/π)·σ; averaged over breaths.
+// white noise, √6·√(2/π)·σ; and over the last second (at most half) the
+// ripple, the slow oscillation (a heartbeat's, a valve's) about a parabola
+// that the noise does not explain, RMS; each averaged over breaths.
 func (s *Segmenter) measureNoise(e, j int) {
 	lo := j - 1
 	for lo > e+(j-e)/2 && s.t[j-1]-s.t[lo-1] <= 0.5 {
@@ -292,17 +310,68 @@ func (s *Segmenter) measureNoise(e, j int) {
 	const k = 1.9544100476116797 // √6·√(2/π)
 	n := float64(j - lo - 2)
 	sp, sf := dp/n/k, df/n/k
+	wide := j - 1
+	for wide > e+(j-e)/2 && s.t[j-1]-s.t[wide-1] <= 1 {
+		wide--
+	}
+	rp := math.Sqrt(max(0, residualVar(s.t, s.paw, wide, j-1)-sp*sp))
+	rf := math.Sqrt(max(0, residualVar(s.t, s.flow, wide, j-1)-sf*sf))
 	if math.IsNaN(s.sigP) {
-		s.sigP, s.sigF = sp, sf
+		s.sigP, s.sigF, s.ripP, s.ripF = sp, sf, rp, rf
 		return
 	}
 	s.sigP += (sp - s.sigP) / 8
 	s.sigF += (sf - s.sigF) / 8
+	s.ripP += (rp - s.ripP) / 8
+	s.ripF += (rf - s.ripF) / 8
+}
+
+// residualVar is the variance of y about its least-squares parabola over
+// samples [lo, hi] (a parabola follows the end of an exponential decay
+// over a second; an oscillation of a heartbeat's period it cannot).
+func residualVar(t, y []float64, lo, hi int) float64 {
+	n := float64(hi - lo + 1)
+	if n < 5 {
+		return 0
+	}
+	mt := (t[lo] + t[hi]) / 2
+	var s1, s2, s3, s4, sy, s1y, s2y, syy float64
+	for i := lo; i <= hi; i++ {
+		d := t[i] - mt
+		d2 := d * d
+		s1 += d
+		s2 += d2
+		s3 += d2 * d
+		s4 += d2 * d2
+		sy += y[i]
+		s1y += d * y[i]
+		s2y += d2 * y[i]
+		syy += y[i] * y[i]
+	}
+	// normal equations of y = c0 + c1·d + c2·d², by Cramer's rule
+	det := n*(s2*s4-s3*s3) - s1*(s1*s4-s3*s2) + s2*(s1*s3-s2*s2)
+	if det <= 0 {
+		return 0
+	}
+	c0 := (sy*(s2*s4-s3*s3) - s1*(s1y*s4-s3*s2y) + s2*(s1y*s3-s2*s2y)) / det
+	c1 := (n*(s1y*s4-s3*s2y) - sy*(s1*s4-s3*s2) + s2*(s1*s2y-s1y*s2)) / det
+	c2 := (n*(s2*s2y-s1y*s3) - s1*(s1*s2y-s1y*s2) + sy*(s1*s3-s2*s2)) / det
+	return max(0, (syy-c0*sy-c1*s1y-c2*s2y)/n)
+}
+
+// ripple is the slow oscillation's amplitude in pressure terms, cmH2O:
+// the pressure's, and the flow's through the recent resistance.
+func (s *Segmenter) ripple() float64 {
+	if math.IsNaN(s.ripP) {
+		return 0
+	}
+	rf := s.recentR.median() * s.ripF / 60
+	return math.Sqrt2 * math.Sqrt(s.ripP*s.ripP+rf*rf)
 }
 
 // patientStart reports that the patient drew flow in during the first
 // 0.15 s of the breath, before the ventilator raised the pressure (see
-// drawn; the base is the previous breath's PEEP).
+// drawn; the base is the previous breath's PEEP, so not for the first).
 func (s *Segmenter) patientStart(e int) bool {
 	if math.IsNaN(s.lastPEEP) {
 		return false
@@ -336,9 +405,6 @@ func (s *Segmenter) triggerDip(e, j int) bool {
 		pb, fb := ps(b), fs(b)
 		for a := b - 1; a >= from && s.t[b]-s.t[a] <= 0.1+1e-9; a-- {
 			if ps(a)-pb >= dip && fb-fs(a) >= rise {
-				if debugDip {
-					println("dip", s.t[a], s.t[b], ps(a), pb, fs(a), fb, dip, rise)
-				}
 				return true
 			}
 		}
@@ -433,5 +499,3 @@ func lineFit(t, y []float64, lo, hi int) (mt, my, slope float64, ok bool) {
 	}
 	return mt, my, sty / stt, true
 }
-
-var debugDip = false

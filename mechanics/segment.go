@@ -176,6 +176,8 @@ type Segmenter struct {
 	recentR   ring8 // … and reliable fitted resistances, cmH2O·s/L
 	sigP      float64
 	sigF      float64 // pressure and flow noise (σ), cmH2O and L/min; NaN before the first breath
+	ripP      float64
+	ripF      float64 // slow ripple about a line at end expiration (RMS), cmH2O and L/min
 	seq       int64
 	afterDrop bool    // the next breath follows a dropped one
 	nextDip   bool    // an effort was seen just before the breath in progress
@@ -200,8 +202,8 @@ func NewSegmenter(cfg Config, rateHz float64) (*Segmenter, error) {
 	size := int(math.Min(math.Max(cfg.MaxBreath*rateHz*1.5, 1024), 1<<18))
 	s := &Segmenter{cfg: cfg, t: make([]float64, size), paw: make([]float64, size), flow: make([]float64, size),
 		si: newSIFit(), openSince: math.NaN(), deadline: math.Inf(1), lastPEEP: math.NaN(), lastSI: math.NaN(),
-		cand: -1, sigP: math.NaN(), sigF: math.NaN()}
-	s.align.init(cfg.FlowDelay, cfg.FlowDelayFixed)
+		cand: -1, sigP: math.NaN(), sigF: math.NaN(), ripP: math.NaN(), ripF: math.NaN()}
+	s.align.init(cfg.FlowDelay, cfg.FlowDelayFixed, cfg.CircuitCompliance)
 	if cfg.Sex != "" {
 		s.pbw, _ = PredictedBodyWeight(cfg.Sex, cfg.HeightCm)
 	}
@@ -345,10 +347,10 @@ func (s *Segmenter) candidate(k int, paw, flow, dv float64) *Breath {
 
 // onset refines the start of a confirmed inflation whose flow first rose
 // above StartFlow/5 at c: the foot of the steep rise to half its peak flow
-// so far, or c itself when the patient drew flow in during the
-// 0.2 s before that rise (see drawn; a trigger's delay is shorter, a slow
-// inflow that the ventilator's own pressure drives is not drawn): the
-// breath then starts where the patient began to inhale.
+// so far, or, when the patient drew flow in during the 0.2 s before that
+// rise (see drawn; a trigger's delay is shorter, a slow inflow that the
+// ventilator's own pressure drives is not drawn), where the flow turned
+// inward before c: the breath starts where the patient began to inhale.
 func (s *Segmenter) onset(c, k int) int {
 	peak, low := s.flow[c], math.Inf(1)
 	for i := c + 1; i <= k; i++ {
@@ -370,6 +372,9 @@ func (s *Segmenter) onset(c, k int) int {
 		m--
 	}
 	if m > c && s.drawn(max(c, s.before(m, 0.2)), m+1, s.candBase) {
+		for c > 1 && s.flow[c-1] > 0 && (s.state != stExp || c-1 > s.expStart) {
+			c-- // back to where the flow turned inward
+		}
 		return c
 	}
 	return m
@@ -392,6 +397,7 @@ func (s *Segmenter) before(i int, d float64) int {
 //   - a trigger dip: inward flow above StartFlow/2 while the pressure is
 //     below base, for at least 2 samples and 10 ms (the patient pulls on
 //     the circuit: Thille et al., Intensive Care Med 2006;32:1515);
+//   - a pull: see pullSums;
 //   - unsupported flow: inward flow above StartFlow (and three times the
 //     flow noise) while the pressure has not risen above base and stays
 //     below base plus 0.8 of the recent breaths' resistance times the
@@ -406,6 +412,7 @@ func (s *Segmenter) drawn(lo, hi int, base float64) bool {
 	margin := max(0.2, 1.5*s.noiseP())
 	inflow := max(s.cfg.StartFlow, 3*s.noiseF())
 	dip, flat := -1, -1 // where each run of the condition began
+	var pull pullSums
 	for i := max(lo, 1); i < hi && i+1 < s.n; i++ {
 		p := (s.paw[i-1] + s.paw[i] + s.paw[i+1]) / 3
 		f := s.flow[i]
@@ -429,8 +436,55 @@ func (s *Segmenter) drawn(lo, hi int, base float64) bool {
 		} else {
 			flat = -1
 		}
+		if p-base > margin {
+			break // the ventilator is raising the pressure: the rest is its
+		}
+		if f > s.cfg.StartFlow/5 {
+			pull.add(s.t[i], s.paw[i], f)
+		}
 	}
-	return false
+	return pull.pulled(base, s.noiseP())
+}
+
+// pullSums gathers the samples of inward flow before the pressure rises,
+// for the third sign of drawn: a patient's pull lowers the pressure as the
+// flow it draws grows (through the circuit's resistance), where a valve
+// that pushes gas raises both together.
+type pullSums struct {
+	n, t0, t1             float64
+	sp, sf, spp, sff, spf float64
+}
+
+func (a *pullSums) add(t, p, f float64) {
+	if a.n == 0 {
+		a.t0 = t
+	}
+	a.n++
+	a.t1 = t
+	a.sp += p
+	a.sf += f
+	a.spp += p * p
+	a.sff += f * f
+	a.spf += p * f
+}
+
+// pulled reports at least 3 samples over 20 ms whose mean pressure is
+// below base by 3 of its standard errors (and 0.1 cmH2O), falling as the
+// flow rises (correlation under −0.3; our thresholds, common practice, no
+// source).
+func (a *pullSums) pulled(base, sigma float64) bool {
+	if a.n < 3 || a.t1-a.t0 < 0.02-1e-9 {
+		return false
+	}
+	mp, mf := a.sp/a.n, a.sf/a.n
+	if base-mp <= max(0.1, 3*sigma/math.Sqrt(a.n)) {
+		return false
+	}
+	vp, vf := a.spp/a.n-mp*mp, a.sff/a.n-mf*mf
+	if vp <= 0 || vf <= 0 {
+		return false
+	}
+	return (a.spf/a.n-mp*mf)/math.Sqrt(vp*vf) < -0.3
 }
 
 // inspiration follows a breath's inspiration to its end: expiration is
@@ -485,6 +539,15 @@ func (s *Segmenter) valveOpening(k int) int {
 	if best > 0 {
 		for best > 1 && s.paw[best-2]-s.paw[best-1] >= drop/2 && s.flow[best-1] < -c.ExpFlow {
 			best--
+		}
+		// outward flow that began at most 20 ms before the pressure fell
+		// is the circuit's gas leaving as the valve opens
+		r := best
+		for r > 1 && s.flow[r-1] < -c.ExpFlow {
+			r--
+		}
+		if s.t[best]-s.t[r] <= 0.02+1e-9 {
+			best = r
 		}
 		return best
 	}

@@ -7,15 +7,15 @@ const siPoints = 48
 
 // stressIndex fits Paw = a·t^b + c over samples [lo, hi] of a
 // constant-flow inflation, t from origin (the flow's half-rise), and
-// returns b (Ranieri et al., Anesthesiology 2000;93:1320) and the fit's
-// R². For each b the fit is linear in a and c; b minimises the residual
+// returns b (Ranieri et al., Anesthesiology 2000;93:1320), the fit's R²
+// and the standard error of b. For each b the fit is linear in a and c; b minimises the residual
 // over [0.2, 5]: by Newton's method from the previous breath's exponent,
 // else by Brent's method to 0.002, with t^b as exp(b·ln t) from logarithms
 // taken once; above 2·siPoints samples, every k-th so that about siPoints
 // remain.
-func (s *Segmenter) stressIndex(lo, hi int, origin float64) (b, r2 float64) {
+func (s *Segmenter) stressIndex(lo, hi int, origin float64) (b, r2, se float64) {
 	if hi-lo < 6 || s.t[lo] <= origin {
-		return nan, nan
+		return nan, nan, nan
 	}
 	step := max(1, (hi-lo)/siPoints)
 	si := &s.si
@@ -49,13 +49,67 @@ func (s *Segmenter) stressIndex(lo, hi int, origin float64) (b, r2 float64) {
 		py[k] -= my
 		syy += py[k] * py[k]
 	}
-	b, g, ok := si.newton(py, s.lastSI)
+	b, _, ok := si.newton(py, s.lastSI)
 	if !ok {
 		b = siBrent(si.lt, py, syy)
-		g = syy - siSSE(si.lt, py, syy, b)
+		for k, l := range si.lt {
+			si.xs[k] = math.Exp(b * l)
+		}
+		si.at, si.series = b, 0
 	}
 	s.lastSI = b
-	return b, g / syy
+	r2, se = siQuality(si.lt, si.xs, py, syy)
+	return b, r2, se
+}
+
+// siQuality is the fit's R² and the standard error of its exponent, from
+// the points' x = t^b (xs, at the exponent found or within 1e-3 of it) and
+// centred pressures py: the residual variance over the information the
+// points carry about b, Σ(∂P/∂b)² less the part a and c explain (the
+// usual linearised least-squares error; common practice, no source).
+func siQuality(lt, xs, py []float64, syy float64) (r2, se float64) {
+	n := float64(len(xs))
+	var sx, sj float64
+	for k, x := range xs {
+		sx += x
+		sj += x * lt[k]
+	}
+	mx, mj := sx/n, sj/n
+	var sxx, sxy, sjj, sjx float64
+	for k, x := range xs {
+		xc, jc := x-mx, x*lt[k]-mj
+		sxx += xc * xc
+		sxy += xc * py[k]
+		sjj += jc * jc
+		sjx += jc * xc
+	}
+	if sxx <= 0 || n < 4 {
+		return nan, nan
+	}
+	a := sxy / sxx
+	sse := max(0, syy-sxy*sxy/sxx)
+	info := a * a * (sjj - sjx*sjx/sxx) // Σ(∂P/∂b)², a and c taken out
+	if sse == 0 {
+		return 1, 0 // an exact power law
+	}
+	if info <= 0 {
+		return 1 - sse/syy, nan
+	}
+	// residuals that follow one another (a cardiac oscillation, a
+	// valve's ringing) carry less information than as many independent
+	// ones: the error grows by √((1+ρ)/(1−ρ)), ρ their lag-one
+	// correlation (the usual correction for AR(1) errors; common
+	// practice, no source)
+	var rr, prev float64
+	for k, x := range xs {
+		r := py[k] - a*(x-mx)
+		if k > 0 {
+			rr += r * prev
+		}
+		prev = r
+	}
+	rho := max(0, min(0.95, rr/sse))
+	return 1 - sse/syy, math.Sqrt(sse / (n - 3) / info * (1 + rho) / (1 - rho))
 }
 
 // siSSE is the residual sum of squares of the best a, c for exponent b:
