@@ -416,11 +416,17 @@ func (s *Sim) startBreath(ts float64, triggered bool) {
 		s.truth(c)
 	}
 	wasExt := s.ext
+	paw := s.set.PEEP // at the first start the lung rests at PEEP
+	if s.inBr && !wasExt {
+		paw, _ = s.airway(ts, s.pmus(ts))
+	}
 	s.set = s.sc.settingsAt(seconds(ts))
 	set := &s.set
 	s.ext = !set.ideal()
+	if !s.inBr {
+		paw = set.PEEP
+	}
 	if s.ext && !wasExt {
-		paw, _ := s.airway(ts, s.pmus(ts))
 		s.x = lungState{v1: s.v, pao: paw}
 	}
 	s.sumQ2, s.sumQ3 = 0, 0
