@@ -119,7 +119,7 @@ func TestSensorLagAndDelay(t *testing.T) {
 	lagged := base
 	lagged.Sensor = Sensor{FlowLag: 0.02, PawDelay: 0.015}
 	got, _ := simRun(t, lagged)
-	const t0 = 7.5 // the second breath's start
+	const t0 = 7.5                              // the second breath's start
 	f0, f := at(got, t0-0.001).Flow, 0.5/0.8*60 // the filter's state before the step
 	for _, n := range []int{0, 10, 20, 50} {
 		want := f0 + (f-f0)*(1-math.Exp(-float64(n+1)*0.001/0.02))
