@@ -122,6 +122,8 @@ func NewEngine(device, run string, rules []Rule) (*Engine, error) {
 	return e, nil
 }
 
+var iPeak, iPlat = index("ppeak"), index("pplat")
+
 func index(field string) int {
 	for i, f := range mechanics.Fields {
 		if f == field {
@@ -132,11 +134,13 @@ func index(field string) int {
 }
 
 // Breath evaluates the breath and rolling rules on a breath and returns
-// the transitions, valid until the next call. w may be nil (rolling rules
-// then see null). It allocates only for the events it returns.
+// the transitions, valid until the next call. A value the breath's flags
+// disown (mechanics.Breath.Untrusted) is null to the rules. w may be nil
+// (rolling rules then see null). It allocates only for the events it
+// returns.
 func (e *Engine) Breath(b *mechanics.Breath, w *mechanics.Window, wall time.Time) []Event {
 	e.out = e.out[:0]
-	e.vals = b.Values(e.vals[:0])
+	e.vals = b.TrustedValues(e.vals[:0]) // a value its flags disown changes nothing
 	var tr *mechanics.Trend
 	if e.trend && w != nil {
 		tr = w.Trend()
@@ -150,7 +154,7 @@ func (e *Engine) Breath(b *mechanics.Breath, w *mechanics.Window, wall time.Time
 		case kindBreath:
 			v = e.vals[st.index]
 		case kindDerived: // peak_plateau_gap
-			v = b.PPeak - b.PPlat
+			v = e.vals[iPeak] - e.vals[iPlat]
 		case kindRolling:
 			v = rolling(st, tr)
 		}

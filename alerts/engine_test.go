@@ -226,3 +226,35 @@ func TestEngineBreathDoesNotAllocate(t *testing.T) {
 		t.Errorf("%v allocations per breath without events", allocs)
 	}
 }
+
+// TestDisownedValuesChangeNothing: a plateau whose pause had not settled
+// (plateau_unsettled) or a fit under effort is published with its flag but
+// is null to the rules: it neither raises nor clears.
+func TestDisownedValuesChangeNothing(t *testing.T) {
+	e, err := NewEngine("d", "r", []Rule{plateauRule(),
+		{ID: "compliance_low", Field: "fit_c", Compare: Below, Threshold: 30, Hysteresis: 1, RaiseAfter: 2, ClearAfter: 2, Level: LevelNotice}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var got []string
+	for i := range 6 {
+		b := mechanics.Breath{TEnd: float64(i+1) * 4, PPlat: 35, FitC: 20, Flags: mechanics.FlagPlateauUnsettled | mechanics.FlagActiveEffort}
+		for _, ev := range e.Breath(&b, nil, wall) {
+			got = append(got, ev.Rule+" "+ev.Transition)
+		}
+	}
+	if len(got) != 0 {
+		t.Errorf("disowned values raised %v", got)
+	}
+	b := mechanics.Breath{TEnd: 100, PPlat: 35, FitC: 20}
+	for range 3 {
+		got = got[:0]
+		for _, ev := range e.Breath(&b, nil, wall) {
+			got = append(got, ev.Rule+" "+ev.Transition)
+		}
+		b.TEnd += 4
+	}
+	if len(got) != 1 || got[0] != "plateau_high raised" {
+		t.Errorf("trusted values: %v on the third", got)
+	}
+}

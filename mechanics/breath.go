@@ -112,6 +112,16 @@ func (b *Breath) Values(dst []float64) []float64 {
 		b.FitR, b.FitC, b.FitP0, b.FitR2, b.Tau, b.MP, b.SI, b.E2Pct, b.PauseDecay, b.PEEPi, b.VTPBW, b.EEF)
 }
 
+// Trusted returns a numeric field by its contract name, NaN when the
+// breath's flags disown it (see Untrusted), and false for an unknown name.
+func (b *Breath) Trusted(name string) (float64, bool) {
+	v, ok := b.Field(name)
+	if ok && b.Untrusted(fieldIndex(name)) {
+		v = nan
+	}
+	return v, ok
+}
+
 // TrustedValues appends the numeric fields in the order of Fields, with
 // NaN for each value that the breath's flags say is not the lung's (see
 // Untrusted): what rolling statistics, rules and summaries take.

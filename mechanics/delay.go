@@ -216,15 +216,28 @@ func (a *aligner) settle() {
 	a.lagP, a.lagF = a.pendP, a.pendF
 }
 
-// Delay reports the flow channel's delay behind the pressure channel: the
-// median of the recent estimates (or the fixed setting), NaN before the
-// first; applied is the delay the channels are aligned by, s.
-func (s *Segmenter) Delay() (estimate, applied float64, fixed bool) {
+// Channels is what a segmenter has measured of its two channels.
+type Channels struct {
+	// Delay is how far the flow channel lags the pressure channel: the
+	// median of the recent estimates (or the fixed setting), s; NaN before
+	// the first.
+	Delay float64
+	// Aligned is the shift the channels are aligned by, s (0 while the
+	// delay is under a sample and a half).
+	Aligned float64
+	Fixed   bool    // the delay is the configured one, not estimated
+	Onsets  int     // the recent onsets Delay is the median of
+	PawSD   float64 // pressure noise σ at end expiration, cmH2O; NaN before the first breath
+	FlowSD  float64 // flow noise σ, L/min
+}
+
+// Channels reports the channels' delay, alignment and noise.
+func (s *Segmenter) Channels() Channels {
 	a := &s.align
-	applied = 0
+	c := Channels{Delay: a.delay, Fixed: a.fixed, Onsets: min(a.nEst, delayKeep), PawSD: s.sigP, FlowSD: s.sigF}
 	if n := min(a.raw, alignSize) - 1; n > 0 {
 		dt := (a.rt[(a.raw-1)&(alignSize-1)] - a.rt[(a.raw-1-n)&(alignSize-1)]) / float64(n)
-		applied = float64(a.lagP-a.lagF) * dt
+		c.Aligned = float64(a.lagP-a.lagF) * dt
 	}
-	return a.delay, applied, a.fixed
+	return c
 }

@@ -220,10 +220,6 @@ func (s *Segmenter) Open() bool { return s.open }
 // Breaths is the number of breaths completed.
 func (s *Segmenter) Breaths() int64 { return s.seq }
 
-// Noise returns the pressure (cmH2O) and flow (L/min) noise, σ, measured
-// at the end of recent expirations; NaN before the first breath.
-func (s *Segmenter) Noise() (paw, flow float64) { return s.sigP, s.sigF }
-
 // Add takes one sample: time t (s), airway pressure paw (cmH2O), flow
 // (L/min, positive into the patient) and whether a gap came before it. It
 // returns the breath that this sample completed, or nil. The breath is

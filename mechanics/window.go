@@ -184,9 +184,11 @@ func NewWindow(cfg WindowConfig) (*Window, error) {
 	return w, nil
 }
 
-// Add takes a breath. It only stores it; Trend computes the summary.
+// Add takes a breath. It only stores it; Trend computes the summary. The
+// values the breath's flags disown (Untrusted) are left out of every
+// statistic.
 func (w *Window) Add(b *Breath) {
-	w.ring[w.head] = b.Values(w.ring[w.head][:0])
+	w.ring[w.head] = b.TrustedValues(w.ring[w.head][:0])
 	w.flags[w.head] = b.Flags
 	w.head = (w.head + 1) % len(w.ring)
 	w.n = min(w.n+1, len(w.ring))

@@ -222,3 +222,23 @@ func TestSortedPartsAgainstSort(t *testing.T) {
 		}
 	}
 }
+
+// TestWindowLeavesOutDisownedValues: the rolling statistics take a value
+// only from breaths whose flags do not disown it (Untrusted).
+func TestWindowLeavesOutDisownedValues(t *testing.T) {
+	w, _ := NewWindow(WindowConfig{Breaths: 10})
+	for i, c := range []float64{40, 41, 90, 42, 95} {
+		b := Breath{TStart: float64(i) * 4, TEnd: float64(i)*4 + 4, FitC: c, VTi: 500, PPlat: nan}
+		if c > 50 {
+			b.Flags = FlagFitUnreliable
+		}
+		w.Add(&b)
+	}
+	tr := w.Trend()
+	if st, _ := tr.Stat("fit_c"); st.N != 3 || st.Median != 41 {
+		t.Errorf("fit_c %+v: want the three reliable ones, median 41", st)
+	}
+	if st, _ := tr.Stat("vti"); st.N != 5 {
+		t.Errorf("vti %+v: the volume is every breath's", st)
+	}
+}

@@ -161,6 +161,11 @@ func StatusJSON(device string, seq int64, state, reason, version string, st Stat
 		"events":          st.Events, "queue_depth": pc.QueueDepth, "records_dropped": pc.Dropped, "messages_sent": pc.Sent,
 		"reconnects": pc.Reconnects, "acks": pc.Acks, "acks_refused": pc.AcksRefused, "events_not_on_disk": pc.Unqueued,
 		"rate_hz": num(st.Counts.RateHz()),
+		// the flow channel's delay behind the pressure channel, as
+		// estimated (or configured) and as the channels are aligned by, s
+		"flow_delay": num(st.Channels.Delay), "flow_delay_aligned": num(st.Channels.Aligned),
+		"flow_delay_fixed": st.Channels.Fixed,
+		"paw_noise":        num(st.Channels.PawSD), "flow_noise": num(st.Channels.FlowSD),
 	}
 	if st.HasHealth {
 		counters["port_connected"], counters["port_outages"] = st.Health.Connected, st.Health.Outages

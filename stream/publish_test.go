@@ -166,9 +166,14 @@ func TestPublishToEmbeddedBroker(t *testing.T) {
 		json.Unmarshal(sub.last("breathd/bed9/status").Payload(), &offline)
 		return offline["state"] == "offline"
 	})
-	// the offline status still carries the device's counters
-	if c, _ := offline["counters"].(map[string]any); c == nil || c["breaths"] != float64(st.Breaths) {
+	// the offline status still carries the device's counters, and the
+	// channels' delay as estimated (the simulator's channels have none)
+	c, _ := offline["counters"].(map[string]any)
+	if c == nil || c["breaths"] != float64(st.Breaths) {
 		t.Errorf("offline counters %v, want %d breaths", offline["counters"], st.Breaths)
+	}
+	if d, ok := c["flow_delay"].(float64); !ok || d < -0.005 || d > 0.005 || c["flow_delay_aligned"] != 0.0 || c["flow_delay_fixed"] != false {
+		t.Errorf("flow delay %v aligned %v fixed %v: want about 0, 0, estimated", c["flow_delay"], c["flow_delay_aligned"], c["flow_delay_fixed"])
 	}
 }
 

@@ -81,10 +81,11 @@ type Config struct {
 type Status struct {
 	Device    string
 	Counts    Counts
-	Breaths   int64           // breaths completed
-	Drops     mechanics.Drops // breaths in progress dropped, by cause
-	Events    int64           // rule transitions
-	Health    device.Health   // the source's, when it reports one
+	Breaths   int64              // breaths completed
+	Drops     mechanics.Drops    // breaths in progress dropped, by cause
+	Channels  mechanics.Channels // the channels' delay, alignment and noise
+	Events    int64              // rule transitions
+	Health    device.Health      // the source's, when it reports one
 	HasHealth bool
 	Elapsed   time.Duration // since Run started
 	Final     bool
@@ -259,6 +260,7 @@ type loop struct {
 	snap  Counts
 	snapB int64
 	snapD mechanics.Drops
+	snapC mechanics.Channels
 	snapE int64
 }
 
@@ -561,13 +563,14 @@ func (l *loop) snapshot() {
 	l.emu.Unlock()
 	l.mu.Lock()
 	l.snap = *l.counts()
-	l.snapB, l.snapD, l.snapE = l.seg.Breaths(), l.seg.Drops(), ev
+	l.snapB, l.snapD, l.snapC, l.snapE = l.seg.Breaths(), l.seg.Drops(), l.seg.Channels(), ev
 	l.mu.Unlock()
 }
 
 func (l *loop) status() Status {
 	l.mu.Lock()
-	st := Status{Device: l.cfg.Device, Counts: l.snap, Breaths: l.snapB, Drops: l.snapD, Events: l.snapE, Elapsed: time.Since(l.start)}
+	st := Status{Device: l.cfg.Device, Counts: l.snap, Breaths: l.snapB, Drops: l.snapD, Channels: l.snapC,
+		Events: l.snapE, Elapsed: time.Since(l.start)}
 	l.mu.Unlock()
 	if h, ok := l.src.(device.HealthReporter); ok {
 		st.Health, st.HasHealth = h.Health(), true

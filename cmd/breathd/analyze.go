@@ -28,7 +28,7 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	fs := newFlags("analyze", "analyze [flags] FILE|-", stderr)
 	var ff formatFlags
 	ff.register(fs)
-	var pf patientFlags
+	var pf mechanicsFlags
 	pf.register(fs)
 	csvPath := fs.String("csv", "", "write one row per breath as CSV to this file, or - for stdout")
 	eventsPath := fs.String("events", "", "write the rule events as JSON lines to this file, or - for stdout")
@@ -168,25 +168,30 @@ func (o *outputs) closeAll() error {
 	return first
 }
 
-// patientFlags give predicted body weight its inputs.
-type patientFlags struct {
-	sex    string
-	height float64
+// mechanicsFlags are the per-device settings of the computation: the
+// patient for predicted body weight, the circuit, the channel delay.
+type mechanicsFlags struct {
+	sex     string
+	height  float64
+	circuit float64
+	delay   string
 }
 
-func (p *patientFlags) register(fs interface {
+func (p *mechanicsFlags) register(fs interface {
 	StringVar(*string, string, string, string)
 	Float64Var(*float64, string, float64, string)
 }) {
 	fs.StringVar(&p.sex, "sex", "", "patient sex, male or female, for vt_pbw (with --height-cm)")
 	fs.Float64Var(&p.height, "height-cm", 0, "patient height in cm, for vt_pbw (with --sex)")
+	fs.Float64Var(&p.circuit, "circuit-compliance", 0, "breathing circuit compliance, mL/cmH2O, when flow is measured at the ventilator: its gas is taken off the volumes (0: flow measured at the airway)")
+	fs.StringVar(&p.delay, "flow-delay", "auto", "how far the flow channel lags the pressure channel: auto (estimated at each inflation) or a duration such as 20ms, -10ms, 0 (no alignment)")
 }
 
-func (p *patientFlags) config() (mechanics.Config, error) {
-	c := mechanics.Config{Sex: p.sex, HeightCm: p.height}
-	c.Defaults()
-	if err := c.Validate(); err != nil {
-		return c, usagef("--sex/--height-cm: %v", err)
+func (p *mechanicsFlags) config() (mechanics.Config, error) {
+	m := measurementConfig{CircuitCompliance: p.circuit, FlowDelay: p.delay}
+	c, err := m.mechanics(mechanics.Patient{Sex: p.sex, HeightCm: p.height})
+	if err != nil {
+		return c, usagef("%v", err)
 	}
 	return c, nil
 }
@@ -270,7 +275,7 @@ func (s *summary) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
 		}
 	}
 	for i, f := range summaryFields {
-		v, _ := b.Field(f)
+		v, _ := b.Trusted(f) // what the breath's flags disown is not the lung's
 		if math.IsNaN(v) {
 			continue
 		}
@@ -297,7 +302,8 @@ func (s *summary) print(w io.Writer, st stream.Status, took time.Duration) {
 	if s.n == 0 {
 		return
 	}
-	fmt.Fprint(w, "  medians:")
+	fmt.Fprintf(w, "  channels: %s\n", channelsText(st.Channels))
+	fmt.Fprint(w, "  medians (of the values no flag disowns):")
 	for i, f := range summaryFields {
 		if len(s.res[i]) == 0 {
 			continue
@@ -317,6 +323,29 @@ func (s *summary) print(w io.Writer, st stream.Status, took time.Duration) {
 		slices.Sort(parts)
 		fmt.Fprintf(w, "  flags: %s\n", strings.Join(parts, ", "))
 	}
+}
+
+// channelsText says how far the flow channel lags the pressure channel,
+// how the channels are aligned, and their noise.
+func channelsText(c mechanics.Channels) string {
+	var b strings.Builder
+	switch {
+	case c.Fixed:
+		fmt.Fprintf(&b, "flow delay %.0f ms as configured", c.Delay*1000)
+	case math.IsNaN(c.Delay):
+		b.WriteString("flow delay not estimated (no passive inflation yet)")
+	default:
+		fmt.Fprintf(&b, "flow %.0f ms behind pressure (median of the last %d passive onsets)", c.Delay*1000, c.Onsets)
+	}
+	if c.Aligned != 0 {
+		fmt.Fprintf(&b, ", aligned by %.0f ms", c.Aligned*1000)
+	} else {
+		b.WriteString(", not shifted")
+	}
+	if !math.IsNaN(c.PawSD) {
+		fmt.Fprintf(&b, "; noise σ %.2f cmH2O, %.2f L/min", c.PawSD, c.FlowSD)
+	}
+	return b.String()
 }
 
 func badCausesOf(c *stream.Counts) string {

@@ -151,3 +151,20 @@ func TestPlotDemo(t *testing.T) {
 		t.Errorf("gif: exit %d %s", code, errs)
 	}
 }
+
+// TestAnalyzeSummaryChannels: the summary says how far the flow channel
+// lags the pressure channel, as estimated or as configured, and takes its
+// medians from the values no flag disowns.
+func TestAnalyzeSummaryChannels(t *testing.T) {
+	code, _, errs := runCLI(t, "analyze", "testdata/demo.txt.gz")
+	if code != 0 || !strings.Contains(errs, "behind pressure (median of the last 9 passive onsets)") || !strings.Contains(errs, "medians (of the values no flag disowns)") {
+		t.Errorf("exit %d: %s", code, errs)
+	}
+	code, _, errs = runCLI(t, "analyze", "--flow-delay", "40ms", "--circuit-compliance", "1.5", "testdata/demo.txt.gz")
+	if code != 0 || !strings.Contains(errs, "flow delay 40 ms as configured, aligned by 40 ms") {
+		t.Errorf("exit %d: %s", code, errs)
+	}
+	if code, _, errs = runCLI(t, "analyze", "--flow-delay", "later", "testdata/demo.txt.gz"); code != 2 || !strings.Contains(errs, "want auto or a duration") {
+		t.Errorf("a bad delay: exit %d: %s", code, errs)
+	}
+}

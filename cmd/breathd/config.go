@@ -46,10 +46,12 @@ type deviceConfig struct {
 	Sim     *simSource           `yaml:"simulate"`
 	Patient mechanics.Patient    `yaml:"patient"`
 	Rules   []alerts.Rule        `yaml:"rules"` // overrides of the default rules by id, or new rules
+	Measure measurementConfig    `yaml:"measurement"`
 
-	rules  []alerts.Rule // the defaults merged with Rules
-	Format formatConfig  `yaml:"format"`
-	Record *recordConfig `yaml:"record"`
+	rules     []alerts.Rule // the defaults merged with Rules
+	mechanics mechanics.Config
+	Format    formatConfig  `yaml:"format"`
+	Record    *recordConfig `yaml:"record"`
 }
 
 type fileSource struct {
@@ -73,6 +75,34 @@ type formatConfig struct {
 	Units     map[string]string `yaml:"units"`
 	FlowSign  float64           `yaml:"flow_sign"`
 	GapLimit  time.Duration     `yaml:"gap_limit"`
+}
+
+// measurementConfig describes how a device measures: the circuit between
+// the flow sensor and the patient, and the delay between its channels.
+type measurementConfig struct {
+	// CircuitCompliance, mL/cmH2O: with flow measured at the ventilator,
+	// the gas compressed in the circuit is taken off the volumes.
+	CircuitCompliance float64 `yaml:"circuit_compliance"`
+	// FlowDelay is "auto" (default: estimated) or how far the flow channel
+	// lags the pressure channel, as a duration ("20ms", "-10ms", "0").
+	FlowDelay string `yaml:"flow_delay"`
+}
+
+// mechanics is the computation's configuration for a patient measured so.
+func (m measurementConfig) mechanics(p mechanics.Patient) (mechanics.Config, error) {
+	c := mechanics.Config{Sex: p.Sex, HeightCm: p.HeightCm, CircuitCompliance: m.CircuitCompliance}
+	if d := strings.TrimSpace(m.FlowDelay); d != "" && d != "auto" {
+		v, err := time.ParseDuration(d)
+		if d == "0" {
+			v, err = 0, nil
+		}
+		if err != nil {
+			return c, fmt.Errorf("flow delay %q: want auto or a duration such as 20ms", m.FlowDelay)
+		}
+		c.FlowDelay, c.FlowDelayFixed = v.Seconds(), true
+	}
+	c.Defaults()
+	return c, c.Validate()
 }
 
 type recordConfig struct {
@@ -370,6 +400,11 @@ func (d *deviceConfig) validate(i int) error {
 			return field(err, "devices", i, "patient")
 		}
 	}
+	mc, err := d.Measure.mechanics(d.Patient)
+	if err != nil {
+		return field(err, "devices", i, "measurement")
+	}
+	d.mechanics = mc
 	rules, err := alerts.Merge(alerts.Defaults(), d.Rules)
 	if err != nil {
 		return field(err, "devices", i, "rules")

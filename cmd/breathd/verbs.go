@@ -36,7 +36,7 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	record := fs.String("record", "", "also record the stream raw into this directory")
 	level := fs.String("log-level", "info", "log level: debug, info, warn or error")
 	every := fs.Duration("report-every", 5*time.Second, "how often to print the counters")
-	var pf patientFlags
+	var pf mechanicsFlags
 	pf.register(fs)
 	var mf mqttFlags
 	mf.register(fs)
@@ -151,7 +151,7 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 			return fmt.Errorf("device %s: %w", d.ID, err)
 		}
 		runs = append(runs, deviceRun{id: d.ID, src: src, format: d.Format.format(),
-			mechanics: mechanics.Config{Sex: d.Patient.Sex, HeightCm: d.Patient.HeightCm}, rules: d.rules,
+			mechanics: d.mechanics, rules: d.rules,
 			live: d.File == nil || d.File.Speed > 0})
 	}
 	mf.apply(&cfg.MQTT, &cfg.Embedded, &cfg.StateDir)
