@@ -70,10 +70,11 @@ func (s *Segmenter) compute(b *Breath, j int) {
 	} else {
 		b.Flags |= FlagVariableFlow
 	}
-	b.PPlat, b.PauseDecay = s.plateau(flowEnd, e)
+	var settled bool
+	b.PPlat, b.PauseDecay, settled = s.plateau(flowEnd, e)
 	if math.IsNaN(b.PPlat) {
 		b.Flags |= FlagNoPlateau
-	} else if b.PauseDecay > max(c.PauseDecayLimit, 3*s.noiseP()) {
+	} else if !settled {
 		b.Flags |= FlagPlateauUnsettled
 	}
 
@@ -155,7 +156,10 @@ func (s *Segmenter) compute(b *Breath, j int) {
 		// so one over 1.25 % leaves it unable to tell 1 from 0.9 (our
 		// choice, from the simulator; no source)
 		rippled := s.ripple() > 0.0125*(paw[hi]-paw[lo])
-		if math.IsNaN(b.SI) || r2 < siR2Min || siUndecided(b.SI, se) || rippled {
+		// a pressure that relaxes in the pause (pendelluft, stress
+		// relaxation) bends the ramp as a change of compliance would
+		relaxes := b.PauseDecay > max(c.PauseDecayLimit, 3*s.noiseP())
+		if math.IsNaN(b.SI) || r2 < siR2Min || siUndecided(b.SI, se) || rippled || relaxes {
 			b.Flags |= FlagSIUnreliable
 		}
 	}
@@ -258,14 +262,21 @@ func (s *Segmenter) endFlow(lo, hi int) float64 {
 
 // plateau finds the end-inspiratory pause after inspiratory flow ends at
 // from (|flow| under PauseFlow for MinPause, before e) and returns the
-// plateau pressure at its end — the mean over its last third — and
-// pause_decay, the pressure at its start (the mean of its first three
-// samples) minus the plateau. Both NaN without a pause.
-// A pressure still falling through the pause (stress relaxation, gas
-// moving between regions of unequal time constants) leaves the plateau
-// above the static one (Bates, Rossi & Milic-Emili, J Appl Physiol
-// 1985;58:1840).
-func (s *Segmenter) plateau(from, e int) (pplat, decay float64) {
+// plateau pressure at its end, pause_decay and whether the plateau had
+// settled. NaN without a pause.
+//
+// On occlusion the pressure falls fast by the airway's resistive part
+// (and, with flow measured at the ventilator, as the circuit's gas moves
+// on into the lung), then slowly as stress relaxes and gas moves between
+// regions of unequal time constants; a plateau taken while it still falls
+// lies above the static one (Bates, Rossi & Milic-Emili, J Appl Physiol
+// 1985;58:1840, from memory). The first 50 ms (at least 3 samples) are the
+// fast part; the rest is cut in thirds: the plateau is the last third's
+// mean, pause_decay the first third's mean less it. If the slow fall is
+// exponential, the second third's fall d2 and the first's d1 give what is
+// still to come after the end, d2·q/(1 − q), q = d2/d1 (a geometric
+// series; arithmetic): above PauseDecayLimit the plateau is not static.
+func (s *Segmenter) plateau(from, e int) (pplat, decay float64, settled bool) {
 	c := &s.cfg
 	i := from
 	for i < e && math.Abs(s.flow[i]) > c.PauseFlow {
@@ -277,15 +288,42 @@ func (s *Segmenter) plateau(from, e int) (pplat, decay float64) {
 	}
 	end := i - 1 // drop the last sample: the expiratory valve is opening
 	if end-start < 4 || s.t[end]-s.t[start] < c.MinPause {
-		return nan, nan
+		return nan, nan, false
 	}
-	from = end - max(3, (end-start)/3)
-	for i := from; i < end; i++ {
-		pplat += s.paw[i]
+	a := start + 3
+	for a < end && s.t[a]-s.t[start] < 0.05 {
+		a++
 	}
-	pplat /= float64(end - from)
-	first := (s.paw[start] + s.paw[start+1] + s.paw[start+2]) / 3
-	return pplat, first - pplat
+	third := (end - a) / 3
+	if third < 2 {
+		// too short to see the slow fall's shape: the last samples, and the
+		// fall since the fast part
+		a = min(start+3, end-3)
+		pplat = mean(s.paw, end-3, end)
+		decay = mean(s.paw, a, a+3) - pplat
+		return pplat, decay, decay <= max(c.PauseDecayLimit, 3*s.noiseP())
+	}
+	pa, pb := mean(s.paw, a, a+third), mean(s.paw, a+third, a+2*third)
+	pplat = mean(s.paw, end-third, end)
+	decay = pa - pplat
+	d1, d2 := pa-pb, pb-pplat
+	if d2 <= 2.5*s.noiseP()*math.Sqrt(2/float64(third)) {
+		return pplat, decay, true // no fall left that the noise does not explain
+	}
+	if d1 <= 0 || d2 >= 0.9*d1 {
+		return pplat, decay, false // not slowing down: no end in sight
+	}
+	q := d2 / d1
+	return pplat, decay, d2*q/(1-q) <= c.PauseDecayLimit
+}
+
+// mean is the mean of x over [lo, hi).
+func mean(x []float64, lo, hi int) float64 {
+	var sum float64
+	for i := lo; i < hi; i++ {
+		sum += x[i]
+	}
+	return sum / float64(hi-lo)
 }
 
 // measureNoise updates the pressure and flow noise from the last half

@@ -33,7 +33,9 @@ type Config struct {
 	MinRise float64
 	RelMin  float64
 
-	PauseDecayLimit float64 // flag plateau_unsettled above this pause_decay, cmH2O; default 0.5
+	// PauseDecayLimit: a plateau whose slow fall would still go on by more
+	// than this after the pause is plateau_unsettled, cmH2O; default 0.5
+	PauseDecayLimit float64
 	PEEPiMin        float64 // intrinsic PEEP from this is present: intrinsic_peep, and dp against total PEEP, cmH2O; default 0.5
 
 	// CircuitCompliance is the breathing circuit's compliance, mL/cmH2O
