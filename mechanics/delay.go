@@ -22,6 +22,7 @@ const (
 	delayPost  = 0.2            // s after it
 	delayLag   = 0.1            // s, the largest lag the estimate tries
 	delayKeep  = 9              // estimates the median is taken over
+	delayEvery = 8              // then one onset in this many is estimated
 	delayFirst = 3              // estimates before the first alignment
 )
 
@@ -37,6 +38,7 @@ type aligner struct {
 	want       float64 // fixed: the delay to apply, s
 	circuit    float64 // the circuit's compliance, L/cmH2O: its gas is not the lung's
 
+	onsets   int64 // onsets seen
 	onsetRaw int64 // raw index of the latest onset, −1 for none
 	estAt    int64 // the raw count at which to estimate it
 	est      [delayKeep]float64
@@ -100,8 +102,14 @@ func (a *aligner) span(d float64) int64 {
 }
 
 // onset notes that an inflation started at the breath buffer's first
-// sample, n samples before the latest.
+// sample, n samples before the latest. Once the median has its onsets,
+// one in delayEvery is estimated: a delay does not change from breath to
+// breath, and each estimate costs a fit per lag tried.
 func (a *aligner) onset(n int) {
+	a.onsets++
+	if a.nEst >= delayKeep && a.onsets%delayEvery != 0 {
+		return
+	}
 	a.onsetRaw = a.raw - int64(n)
 	a.estAt = a.onsetRaw + 1 + a.span(delayPost) + a.span(delayLag)
 	if a.raw >= a.estAt { // already past: estimate now

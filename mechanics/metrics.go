@@ -203,10 +203,11 @@ func (s *Segmenter) stressIndexOf(lo, hi int, level float64) (si, r2, se float64
 		f0, f1 := s.flow[h-1], s.flow[h]
 		origin = t[h-1] + (level/2-f0)/(f1-f0)*(t[h]-t[h-1])
 	}
-	// to a sixteenth of the sample interval, so that a steady ventilator's
-	// breaths give the same times and the fit reuses its logarithms
+	// to a sixteenth of the sample interval from the breath's start, so
+	// that a steady ventilator's breaths give the same times and the fit
+	// reuses its logarithms (however large the stream time)
 	q := (t[1] - t[0]) / 16
-	origin = math.Round(origin/q) * q
+	origin = t[0] + math.Round((origin-t[0])/q)*q
 	from := origin + (t[hi]-origin)/10
 	for lo < hi && t[lo] < from {
 		lo++

@@ -171,11 +171,11 @@ type Segmenter struct {
 	outVol    float64 // volume of the current run of outward flow, L/min·s
 	pBase     float64 // the breath's pressure before its inflation, cmH2O
 	pTop      float64 // highest airway pressure of the inspiration, cmH2O
-	prevFlow  float64 // the previous sample's flow, L/min
-	prevT     float64
-	recentVT  ring8 // the last breaths' inspired volumes, mL
-	recentSw  ring8 // … and pressure swings ppeak − peep, cmH2O
-	recentR   ring8 // … and reliable fitted resistances, cmH2O·s/L
+	recentVT  ring8   // the last breaths' inspired volumes, mL
+	recentSw  ring8   // … and pressure swings ppeak − peep, cmH2O
+	recentR   ring8   // … and reliable fitted resistances, cmH2O·s/L
+	medVT     float64
+	medSw     float64 // the medians of recentVT and recentSw
 	sigP      float64
 	sigF      float64 // pressure and flow noise (σ), cmH2O and L/min; NaN before the first breath
 	ripP      float64
@@ -241,11 +241,6 @@ func (s *Segmenter) Add(t, paw, flow float64, gap bool) *Breath {
 	k := s.n
 	s.t[k], s.paw[k], s.flow[k] = t, paw, flow
 	s.n++
-	dv := (flow + s.prevFlow) / 2 * (t - s.prevT) // L/min·s since the last sample
-	s.prevFlow, s.prevT = flow, t
-	if k == 0 {
-		dv = 0
-	}
 	if paw >= s.cfg.OpenPaw || math.Abs(flow) >= s.cfg.StartFlow {
 		s.open = false // the common case, without a call
 		s.openSince = nan
@@ -262,7 +257,7 @@ func (s *Segmenter) Add(t, paw, flow float64, gap bool) *Breath {
 		return nil
 	}
 	if s.cand >= 0 {
-		return s.candidate(k, paw, flow, dv)
+		return s.candidate(k, paw, flow, s.dv(k))
 	}
 	c := &s.cfg
 	switch s.state {
@@ -278,13 +273,21 @@ func (s *Segmenter) Add(t, paw, flow float64, gap bool) *Breath {
 			s.keepLast(16)
 		}
 	case stInsp:
-		s.inspiration(k, paw, flow, dv)
+		s.inspiration(k, paw, flow, s.dv(k))
 	case stExp:
 		if flow > c.StartFlow && t-s.t[s.expStart] >= c.MinExp {
 			s.open1(k)
 		}
 	}
 	return nil
+}
+
+// dv is the volume that flowed from sample k−1 to k, L/min·s.
+func (s *Segmenter) dv(k int) float64 {
+	if k == 0 {
+		return 0
+	}
+	return (s.flow[k] + s.flow[k-1]) / 2 * (s.t[k] - s.t[k-1])
 }
 
 // open1 opens a candidate inflation whose flow passed StartFlow at k.
@@ -328,10 +331,7 @@ func (s *Segmenter) candidate(k int, paw, flow, dv float64) *Breath {
 	if vol < c.MinVT || rise < c.MinRise {
 		return nil
 	}
-	if m := s.recentVT.median(); vol < c.RelMin*m {
-		return nil
-	}
-	if m := s.recentSw.median(); rise < c.RelMin*m {
+	if vol < c.RelMin*s.medVT || rise < c.RelMin*s.medSw {
 		return nil
 	}
 	j := s.onset(s.cand, k)
@@ -614,6 +614,7 @@ func (s *Segmenter) finish(j int) *Breath {
 	s.align.accept(b.Reliable())
 	s.recentVT.add(b.VTi)
 	s.recentSw.add(b.PPeak - b.PEEP)
+	s.medVT, s.medSw = s.recentVT.median(), s.recentSw.median()
 	if b.Reliable() {
 		s.recentR.add(b.FitR)
 	}
@@ -630,6 +631,7 @@ func (s *Segmenter) drop(counter *int64) {
 	s.state, s.n, s.nextDip, s.lastPEEP, s.cand = stSync, 0, false, math.NaN(), -1
 	s.deadline = math.Inf(1)
 	s.recentVT, s.recentSw, s.recentR = ring8{}, ring8{}, ring8{}
+	s.medVT, s.medSw = 0, 0
 }
 
 // shift moves samples [j, n) to the front of the buffer.
