@@ -45,8 +45,15 @@ func (s *Segmenter) compute(b *Breath, j int) {
 	b.VTi, b.VTe = vin/60*1000, vex/60*1000
 	b.PMean = pint / (b.TEnd - b.TStart)
 	b.PEEP = s.endExpiratoryPressure(e, j)
-	b.EEF = (flow[j-1] + flow[max(j-2, e)]) / 2
-	if b.EEF < -c.EEFLimit {
+	// end-expiratory flow: the mean over the last 0.1 s (at least 2
+	// samples) before the next start, and the noise left in that mean
+	ee := max(j-2, e)
+	for ee > e && t[j]-t[ee-1] <= 0.1+1e-9 {
+		ee--
+	}
+	b.EEF = mean(flow, ee, j)
+	eefNoise := 2.5 * s.noiseF() / math.Sqrt(float64(j-ee))
+	if b.EEF < -max(c.EEFLimit, eefNoise) {
 		b.Flags |= FlagIncompleteExhalation
 	}
 
@@ -119,7 +126,7 @@ func (s *Segmenter) compute(b *Breath, j int) {
 	}
 	b.PEEPi = max(0, -b.EEF) / 60 * r
 	peepTotal := b.PEEP
-	if b.PEEPi >= c.PEEPiMin {
+	if b.PEEPi >= c.PEEPiMin && -b.EEF > eefNoise {
 		b.Flags |= FlagIntrinsicPEEP
 		peepTotal += b.PEEPi
 	}

@@ -25,10 +25,11 @@ type Config struct {
 	TriggerDip float64 // a pressure drop this deep while flow turns inward is the patient's effort, cmH2O; default 0.5
 
 	// An inflation is a breath only when it carries at least MinVT mL
-	// (default 40) and raises the airway pressure by at least MinRise
-	// cmH2O (default 2), and both are at least RelMin (default 0.25) of
-	// the recent breaths' median volume and pressure swing: expiratory
-	// flow humps, bias flow and noise are not breaths.
+	// (default 40), raises the airway pressure by at least MinRise cmH2O
+	// (default 2) and its flow reaches 4·StartFlow, and all three are at
+	// least RelMin (default 0.25) of the recent breaths' median volume,
+	// pressure swing and peak flow: expiratory flow humps, bias flow and
+	// noise are not breaths.
 	MinVT   float64
 	MinRise float64
 	RelMin  float64
@@ -167,15 +168,19 @@ type Segmenter struct {
 	candVol   float64 // volume since the candidate's start, L·min/s·… (flow × s, L/min·s)
 	candBase  float64 // airway pressure before the candidate, cmH2O
 	candMax   float64 // highest airway pressure since the candidate's start, cmH2O
+	candPeak  float64 // highest flow since the candidate's start, L/min
 	inVol     float64 // inspired volume of the breath so far, L/min·s
 	outVol    float64 // volume of the current run of outward flow, L/min·s
 	pBase     float64 // the breath's pressure before its inflation, cmH2O
 	pTop      float64 // highest airway pressure of the inspiration, cmH2O
+	peakFlow  float64 // highest inspiratory flow of the breath, L/min
 	recentVT  ring8   // the last breaths' inspired volumes, mL
 	recentSw  ring8   // … and pressure swings ppeak − peep, cmH2O
 	recentR   ring8   // … and reliable fitted resistances, cmH2O·s/L
+	recentPF  ring8   // … and peak inspiratory flows, L/min
 	medVT     float64
-	medSw     float64 // the medians of recentVT and recentSw
+	medSw     float64
+	medPF     float64 // the medians of recentVT, recentSw and recentPF
 	sigP      float64
 	sigF      float64 // pressure and flow noise (σ), cmH2O and L/min; NaN before the first breath
 	ripP      float64
@@ -311,9 +316,9 @@ func (s *Segmenter) open1(k int) {
 	if j >= 3 {
 		s.candBase = (s.paw[j-1] + s.paw[j-2] + s.paw[j-3]) / 3
 	}
-	s.candMax = s.paw[j]
+	s.candMax, s.candPeak = s.paw[j], s.flow[j]
 	for i := j + 1; i <= k; i++ {
-		s.candMax = max(s.candMax, s.paw[i])
+		s.candMax, s.candPeak = max(s.candMax, s.paw[i]), max(s.candPeak, s.flow[i])
 	}
 }
 
@@ -326,12 +331,13 @@ func (s *Segmenter) candidate(k int, paw, flow, dv float64) *Breath {
 		s.cand = -1 // the flow fell back: a hump, not a breath
 		return nil
 	}
+	s.candPeak = max(s.candPeak, flow)
 	vol := s.candVol / 60 * 1000 // mL
 	rise := s.candMax - s.candBase
-	if vol < c.MinVT || rise < c.MinRise {
+	if vol < c.MinVT || rise < c.MinRise || s.candPeak < 4*c.StartFlow {
 		return nil
 	}
-	if vol < c.RelMin*s.medVT || rise < c.RelMin*s.medSw {
+	if vol < c.RelMin*s.medVT || rise < c.RelMin*s.medSw || s.candPeak < c.RelMin*s.medPF {
 		return nil
 	}
 	j := s.onset(s.cand, k)
@@ -350,20 +356,28 @@ func (s *Segmenter) candidate(k int, paw, flow, dv float64) *Breath {
 // ventilator's own pressure drives is not drawn), where the flow turned
 // inward before c: the breath starts where the patient began to inhale.
 func (s *Segmenter) onset(c, k int) int {
-	peak, low := s.flow[c], math.Inf(1)
-	for i := c + 1; i <= k; i++ {
-		peak = max(peak, s.flow[i])
+	// the flow as the median of three samples, so that one spike (a valve's
+	// click on a fast flow sensor) neither ends nor starts a rise
+	f := func(i int) float64 {
+		a, b, d := s.flow[max(i-1, c)], s.flow[i], s.flow[min(i+1, k)]
+		return max(min(a, b), min(max(a, b), d))
 	}
-	m := c
-	for m < k && s.flow[m] < peak/2 {
-		low = min(low, s.flow[m])
-		m++
+	peak, low := f(c), math.Inf(1)
+	for i := c + 1; i <= k; i++ {
+		peak = max(peak, f(i))
+	}
+	m := k // the first sample of the last run at or above half the peak
+	for m > c && f(m-1) >= peak/2 {
+		m--
+	}
+	for i := c; i < m; i++ {
+		low = min(low, f(i))
 	}
 	// back from half the peak to the foot of the rise: past the last
 	// sample at most a tenth of the way up from the lowest flow before it,
 	// then down the rise while it keeps falling and stays above zero flow
 	foot := low + 0.1*(peak-low)
-	for m > c && s.flow[m-1] > foot {
+	for m > c && f(m-1) > foot {
 		m--
 	}
 	for m > c && s.flow[m-1] < s.flow[m] && s.flow[m-1] > s.cfg.StartFlow/5 {
@@ -492,7 +506,7 @@ func (a *pullSums) pulled(base, sigma float64) bool {
 // valveOpening).
 func (s *Segmenter) inspiration(k int, paw, flow, dv float64) {
 	c := &s.cfg
-	s.pTop = max(s.pTop, paw)
+	s.pTop, s.peakFlow = max(s.pTop, paw), max(s.peakFlow, flow)
 	if flow >= 0 {
 		s.outVol = 0
 	} else {
@@ -592,9 +606,9 @@ func (s *Segmenter) begin(j int) {
 	s.state, s.inspEnd, s.expStart = stInsp, -1, -1
 	s.deadline, s.inspMin = s.t[0]+s.cfg.MaxBreath, s.t[0]+s.cfg.MinInsp
 	s.pBase = s.candBase
-	s.pTop, s.inVol, s.outVol = s.paw[0], 0, 0
+	s.pTop, s.peakFlow, s.inVol, s.outVol = s.paw[0], s.flow[0], 0, 0
 	for i := 1; i < s.n; i++ {
-		s.pTop = max(s.pTop, s.paw[i])
+		s.pTop, s.peakFlow = max(s.pTop, s.paw[i]), max(s.peakFlow, s.flow[i])
 		s.inVol += (s.flow[i] + s.flow[i-1]) / 2 * (s.t[i] - s.t[i-1])
 	}
 	s.align.onset(s.n)
@@ -614,7 +628,8 @@ func (s *Segmenter) finish(j int) *Breath {
 	s.align.accept(b.Reliable())
 	s.recentVT.add(b.VTi)
 	s.recentSw.add(b.PPeak - b.PEEP)
-	s.medVT, s.medSw = s.recentVT.median(), s.recentSw.median()
+	s.recentPF.add(s.peakFlow)
+	s.medVT, s.medSw, s.medPF = s.recentVT.median(), s.recentSw.median(), s.recentPF.median()
 	if b.Reliable() {
 		s.recentR.add(b.FitR)
 	}
@@ -630,8 +645,8 @@ func (s *Segmenter) drop(counter *int64) {
 	}
 	s.state, s.n, s.nextDip, s.lastPEEP, s.cand = stSync, 0, false, math.NaN(), -1
 	s.deadline = math.Inf(1)
-	s.recentVT, s.recentSw, s.recentR = ring8{}, ring8{}, ring8{}
-	s.medVT, s.medSw = 0, 0
+	s.recentVT, s.recentSw, s.recentR, s.recentPF = ring8{}, ring8{}, ring8{}, ring8{}
+	s.medVT, s.medSw, s.medPF = 0, 0, 0
 }
 
 // shift moves samples [j, n) to the front of the buffer.
@@ -652,17 +667,19 @@ func (s *Segmenter) keepLast(m int) {
 	}
 }
 
-// noiseP and noiseF are the noise estimates, 0 before the first breath.
+// noiseP and noiseF are the noise estimates; before the first breath has
+// measured them, a ventilator's usual (0.2 cmH2O, 0.5 L/min; our choice),
+// so that the first breath's tests are not sharper than the rest.
 func (s *Segmenter) noiseP() float64 {
 	if math.IsNaN(s.sigP) {
-		return 0
+		return 0.2
 	}
 	return s.sigP
 }
 
 func (s *Segmenter) noiseF() float64 {
 	if math.IsNaN(s.sigF) {
-		return 0
+		return 0.5
 	}
 	return s.sigF
 }
