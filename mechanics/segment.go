@@ -350,19 +350,19 @@ func (s *Segmenter) candidate(k int, paw, flow, dv float64) *Breath {
 }
 
 // onset refines the start of a confirmed inflation whose flow first rose
-// above StartFlow/5 at c: the foot of the steep rise to half its peak flow
-// so far, or, when the patient drew flow in during the 0.2 s before that
+// above StartFlow/5 at c: the foot of the last rise to half its peak flow
+// so far (going back, where the flow stops falling or is down to a tenth
+// of the rise), or, when the patient drew flow in during the 0.2 s before that
 // rise (see drawn; a trigger's delay is shorter, a slow inflow that the
 // ventilator's own pressure drives is not drawn), where the flow turned
 // inward before c: the breath starts where the patient began to inhale.
 func (s *Segmenter) onset(c, k int) int {
-	// the flow as the median of three samples, so that one spike (a valve's
-	// click on a fast flow sensor) neither ends nor starts a rise
+	// the flow as the mean of three samples, so that a fast flow sensor's
+	// ringing neither ends nor starts a rise
 	f := func(i int) float64 {
-		a, b, d := s.flow[max(i-1, c)], s.flow[i], s.flow[min(i+1, k)]
-		return max(min(a, b), min(max(a, b), d))
+		return (s.flow[max(i-1, c)] + s.flow[i] + s.flow[min(i+1, k)]) / 3
 	}
-	peak, low := f(c), math.Inf(1)
+	peak := f(c)
 	for i := c + 1; i <= k; i++ {
 		peak = max(peak, f(i))
 	}
@@ -370,20 +370,22 @@ func (s *Segmenter) onset(c, k int) int {
 	for m > c && f(m-1) >= peak/2 {
 		m--
 	}
+	half := m
+	// back down the rise to its foot: while the flow keeps falling, stays
+	// a tenth of the way up from the lowest flow before the rise, and
+	// above zero flow
+	low := s.flow[c-1] // at most StartFlow/5: where the flow left zero
 	for i := c; i < m; i++ {
 		low = min(low, f(i))
 	}
-	// back from half the peak to the foot of the rise: past the last
-	// sample at most a tenth of the way up from the lowest flow before it,
-	// then down the rise while it keeps falling and stays above zero flow
 	foot := low + 0.1*(peak-low)
-	for m > c && f(m-1) > foot {
+	for m > c && f(m-1) < f(m) && f(m-1) > foot && s.flow[m-1] > s.cfg.StartFlow/5 {
 		m--
 	}
-	for m > c && s.flow[m-1] < s.flow[m] && s.flow[m-1] > s.cfg.StartFlow/5 {
-		m--
-	}
-	if m > c && s.drawn(max(c, s.before(m, 0.2)), m+1, s.candBase) {
+	// the patient's pull shows before the ventilator raises the pressure:
+	// from 0.2 s before the foot up to the steep rise (drawn stops where the
+	// pressure rises)
+	if m > c && s.drawn(max(c, s.before(m, 0.2)), half+1, s.candBase) {
 		for c > 1 && s.flow[c-1] > 0 && (s.state != stExp || c-1 > s.expStart) {
 			c-- // back to where the flow turned inward
 		}
