@@ -31,16 +31,17 @@ const (
 // sample lagF earlier), and estimates the delay from inflation onsets.
 // The time of an aligned sample is the later channel's.
 type aligner struct {
-	rt, rp, rf [alignSize]float64
+	wake       int64 // the raw count at which add has more to do: set a fixed lag, estimate
 	raw        int64 // raw samples since the last reset
 	lagP, lagF int   // samples by which pressure / flow are delayed
+	ring       *[alignSize]rawSample
+	scratch    *alignScratch
 	fixed      bool
 	want       float64 // fixed: the delay to apply, s
 	circuit    float64 // the circuit's compliance, L/cmH2O: its gas is not the lung's
 
 	onsets   int64 // onsets seen
 	onsetRaw int64 // raw index of the latest onset, −1 for none
-	estAt    int64 // the raw count at which to estimate it
 	est      [delayKeep]float64
 	nEst     int
 	delay    float64 // median of the estimates, s; NaN before the first
@@ -51,39 +52,47 @@ type aligner struct {
 }
 
 func (a *aligner) init(delay float64, fixed bool, circuit float64) {
+	a.ring, a.scratch = new([alignSize]rawSample), new(alignScratch)
 	a.fixed, a.want, a.circuit = fixed, delay, circuit/1000
 	a.delay, a.pending = nan, nan
 	if fixed {
 		a.delay = delay
 	}
-	a.onsetRaw = -1
+	a.reset()
 }
 
 // reset forgets the history: after a gap the channels restart.
 func (a *aligner) reset() {
-	a.raw, a.onsetRaw, a.pending = 0, -1, nan
+	a.raw, a.onsetRaw, a.pending, a.wake = 0, -1, nan, -1
+	if a.fixed && a.want != 0 {
+		a.wake = 2 // the lag once the sample interval is known
+	}
 }
 
-// add stores a raw sample and returns the aligned pressure and flow for
-// time t; ok is false while the history is shorter than the lag.
-func (a *aligner) add(t, paw, flow float64) (float64, float64, bool) {
-	r := a.raw & (alignSize - 1)
-	a.rt[r], a.rp[r], a.rf[r] = t, paw, flow
-	a.raw++
-	if a.raw == 2 && a.fixed && a.want != 0 {
-		a.setLag(a.want / (t - a.rt[0]))
+// Segmenter.Add stores each raw sample in ring, counts it in raw, calls
+// wakeUp when raw reaches wake and, when a lag is set, takes the pair from
+// lagged.
+
+// wakeUp does what the sample count was waiting for.
+func (a *aligner) wakeUp(t float64) {
+	a.wake = -1
+	if a.raw == 2 && a.fixed {
+		a.setLag(a.want / (t - a.ring[0].t))
 		a.lagP, a.lagF = a.pendP, a.pendF
+		return
 	}
-	if a.raw == a.estAt && a.onsetRaw >= 0 {
+	if a.onsetRaw >= 0 {
 		a.estimate()
 	}
-	if a.lagP|a.lagF == 0 {
-		return paw, flow, true
-	}
+}
+
+// lagged is the latest sample's pressure and flow at the current lags; ok
+// is false while the history is shorter than the lag.
+func (a *aligner) lagged() (float64, float64, bool) {
 	if a.raw <= int64(a.lagP+a.lagF) {
 		return 0, 0, false
 	}
-	return a.rp[(a.raw-1-int64(a.lagP))&(alignSize-1)], a.rf[(a.raw-1-int64(a.lagF))&(alignSize-1)], true
+	return a.ring[(a.raw-1-int64(a.lagP))&(alignSize-1)].p, a.ring[(a.raw-1-int64(a.lagF))&(alignSize-1)].f, true
 }
 
 // span is d seconds in samples at the history's sample interval, at least 1.
@@ -94,7 +103,7 @@ func (a *aligner) span(d float64) int64 {
 	}
 	last := (a.raw - 1) & (alignSize - 1)
 	first := (a.raw - 1 - n) & (alignSize - 1)
-	dt := (a.rt[last] - a.rt[first]) / float64(n)
+	dt := (a.ring[last].t - a.ring[first].t) / float64(n)
 	if !(dt > 0) {
 		return 1
 	}
@@ -111,8 +120,9 @@ func (a *aligner) onset(n int) {
 		return
 	}
 	a.onsetRaw = a.raw - int64(n)
-	a.estAt = a.onsetRaw + 1 + a.span(delayPost) + a.span(delayLag)
-	if a.raw >= a.estAt { // already past: estimate now
+	a.wake = a.onsetRaw + 1 + a.span(delayPost) + a.span(delayLag)
+	if a.raw >= a.wake { // already past: estimate now
+		a.wake = -1
 		a.estimate()
 	}
 }
@@ -128,12 +138,22 @@ func (a *aligner) estimate() {
 		return
 	}
 	m := func(i int64) int64 { return i & (alignSize - 1) }
-	dt := (a.rt[m(o+post)] - a.rt[m(o-pre)]) / float64(pre+post)
+	dt := (a.ring[m(o+post)].t - a.ring[m(o-pre)].t) / float64(pre+post)
+	sc := a.scratch
+	for i := range int(pre + post + 1) {
+		sc.t[i], sc.p[i] = float64(i)*dt, a.ring[m(o-pre+int64(i))].p
+	}
+	// once the median stands, around it only: a delay does not jump
+	from, to := -maxLag, maxLag
+	if a.nEst >= delayKeep {
+		c := int64(math.Round(a.delay / dt))
+		from, to = max(-maxLag, c-3), min(maxLag, c+3)
+	}
 	best, bestS := int64(0), math.Inf(1)
 	var ss [3]float64 // residuals at best−1, best, best+1
 	prev := math.NaN()
-	for lag := -maxLag; lag <= maxLag; lag++ {
-		r := eomResidual(&a.rp, &a.rf, o-pre, o+post, lag, dt, a.circuit)
+	for lag := from; lag <= to; lag++ {
+		r := a.residual(sc, o-pre, o+post, lag)
 		if r < bestS {
 			best, bestS = lag, r
 			ss[0], ss[1], ss[2] = prev, r, math.NaN()
@@ -142,7 +162,7 @@ func (a *aligner) estimate() {
 		}
 		prev = r
 	}
-	if best == -maxLag || best == maxLag || math.IsInf(bestS, 1) {
+	if best == from || best == to || math.IsInf(bestS, 1) {
 		return
 	}
 	frac := 0.0
@@ -182,33 +202,28 @@ func (a *aligner) accept(passive bool) {
 	}
 }
 
-// eomResidual is the residual sum of squares of Paw = R·V' + E·V + P0
-// over raw samples [lo, hi] with the flow taken lag samples later, V its
-// trapezoid integral from lo, dt the sample interval; with a circuit of
-// compliance cc (L/cmH2O) its gas, cc·ΔPaw and cc·Paw', is taken off the
-// volume and the flow; +Inf when the fit is singular.
-func eomResidual(p, f *[alignSize]float64, lo, hi, lag int64, dt, cc float64) float64 {
-	const k = alignSize - 1
-	var a eomSums
-	var v float64
-	f0, p0 := f[(lo+lag)&k]/60, p[lo&k]
-	prev := f0
-	for i := lo; i <= hi; i++ {
-		q := f[(i+lag)&k] / 60 // L/s
-		v += (prev + q) / 2 * dt
-		prev = q
-		y := p[i&k] - p0
-		x1, x2 := q-f0, v-cc*y
-		if cc > 0 {
-			x1 -= cc * (p[(i+1)&k] - p[(i-1)&k]) / (2 * dt)
-		}
-		a.add(x1, x2, x2*x2, y)
+// residual is the residual sum of squares of Paw = R·V' + E·V + P0 over
+// raw samples [lo, hi] with the flow taken lag samples later (see
+// eomSumsOf; sc holds the samples as slices, its times and pressures
+// already filled), +Inf when the fit is singular.
+func (a *aligner) residual(sc *alignScratch, lo, hi, lag int64) float64 {
+	n := int(hi - lo + 1)
+	for i := range n {
+		sc.f[i] = a.ring[(lo+int64(i)+lag)&(alignSize-1)].f
 	}
-	a.centre(float64(hi - lo + 1))
-	if _, _, ssr, ok := a.linear(); ok {
+	sums, _ := eomSumsOf(sc.t[:n], sc.p[:n], sc.f[:n], a.circuit, 0)
+	if _, _, ssr, ok := sums.linear(); ok {
 		return ssr
 	}
 	return math.Inf(1)
+}
+
+// rawSample is a sample as it came: time s, pressure cmH2O, flow L/min.
+type rawSample struct{ t, p, f float64 }
+
+// alignScratch is an estimate's window as slices, allocated once.
+type alignScratch struct {
+	t, p, f [alignSize]float64
 }
 
 // setLag sets the pending lags for a delay of d samples of flow behind
@@ -244,7 +259,7 @@ func (s *Segmenter) Channels() Channels {
 	a := &s.align
 	c := Channels{Delay: a.delay, Fixed: a.fixed, Onsets: min(a.nEst, delayKeep), PawSD: s.sigP, FlowSD: s.sigF}
 	if n := min(a.raw, alignSize) - 1; n > 0 {
-		dt := (a.rt[(a.raw-1)&(alignSize-1)] - a.rt[(a.raw-1-n)&(alignSize-1)]) / float64(n)
+		dt := (a.ring[(a.raw-1)&(alignSize-1)].t - a.ring[(a.raw-1-n)&(alignSize-1)].t) / float64(n)
 		c.Aligned = float64(a.lagP-a.lagF) * dt
 	}
 	return c

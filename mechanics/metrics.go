@@ -104,7 +104,7 @@ func (s *Segmenter) compute(b *Breath, j int) {
 		}
 	}
 
-	s.fit(b, j)
+	s.fit(b, j, e)
 	if s.nextDip || s.patientStart(e) {
 		b.Flags |= FlagActiveEffort
 	}
@@ -162,7 +162,7 @@ func (s *Segmenter) compute(b *Breath, j int) {
 		// ripple of 6 % of the ramp's rise moved the index by up to 0.45,
 		// so one over 1.25 % leaves it unable to tell 1 from 0.9 (our
 		// choice, from the simulator; no source)
-		rippled := s.ripple() > 0.0125*(paw[hi]-paw[lo])
+		rippled := s.ripple(e, j) > 0.0125*(paw[hi]-paw[lo])
 		// a pressure that relaxes in the pause (pendelluft, stress
 		// relaxation) bends the ramp as a change of compliance would
 		relaxes := b.PauseDecay > max(c.PauseDecayLimit, 3*s.noiseP())
@@ -337,9 +337,7 @@ func mean(x []float64, lo, hi int) float64 {
 // measureNoise updates the pressure and flow noise from the last half
 // second (at most half) of expiration [e, j): the mean absolute second
 // difference, which a slow signal hardly moves, over its expectation for
-// white noise, √6·√(2/π)·σ; and over the last second (at most half) the
-// ripple, the slow oscillation (a heartbeat's, a valve's) about a parabola
-// that the noise does not explain, RMS; each averaged over breaths.
+// white noise, √6·√(2/π)·σ; averaged over breaths.
 func (s *Segmenter) measureNoise(e, j int) {
 	lo := j - 1
 	for lo > e+(j-e)/2 && s.t[j-1]-s.t[lo-1] <= 0.5 {
@@ -356,33 +354,26 @@ func (s *Segmenter) measureNoise(e, j int) {
 	const k = 1.9544100476116797 // √6·√(2/π)
 	n := float64(j - lo - 2)
 	sp, sf := dp/n/k, df/n/k
-	wide := j - 1
-	for wide > e+(j-e)/2 && s.t[j-1]-s.t[wide-1] <= 1 {
-		wide--
-	}
-	rp := math.Sqrt(max(0, residualVar(s.t, s.paw, wide, j-1)-sp*sp))
-	rf := math.Sqrt(max(0, residualVar(s.t, s.flow, wide, j-1)-sf*sf))
 	if math.IsNaN(s.sigP) {
-		s.sigP, s.sigF, s.ripP, s.ripF = sp, sf, rp, rf
+		s.sigP, s.sigF = sp, sf
 		return
 	}
 	s.sigP += (sp - s.sigP) / 8
 	s.sigF += (sf - s.sigF) / 8
-	s.ripP += (rp - s.ripP) / 8
-	s.ripF += (rf - s.ripF) / 8
 }
 
 // residualVar is the variance of y about its least-squares parabola over
-// samples [lo, hi] (a parabola follows the end of an exponential decay
-// over a second; an oscillation of a heartbeat's period it cannot).
-func residualVar(t, y []float64, lo, hi int) float64 {
-	n := float64(hi - lo + 1)
+// every step-th sample of [lo, hi] (a parabola follows the end of an
+// exponential decay over a second; an oscillation of a heartbeat's period
+// it cannot).
+func residualVar(t, y []float64, lo, hi, step int) float64 {
+	n := float64((hi-lo)/step + 1)
 	if n < 5 {
 		return 0
 	}
 	mt := (t[lo] + t[hi]) / 2
 	var s1, s2, s3, s4, sy, s1y, s2y, syy float64
-	for i := lo; i <= hi; i++ {
+	for i := lo; i <= hi; i += step {
 		d := t[i] - mt
 		d2 := d * d
 		s1 += d
@@ -405,14 +396,24 @@ func residualVar(t, y []float64, lo, hi int) float64 {
 	return max(0, (syy-c0*sy-c1*s1y-c2*s2y)/n)
 }
 
-// ripple is the slow oscillation's amplitude in pressure terms, cmH2O:
-// the pressure's, and the flow's through the recent resistance.
-func (s *Segmenter) ripple() float64 {
-	if math.IsNaN(s.ripP) {
-		return 0
+// ripple is the slow oscillation (a heartbeat's, a valve's) at the end of
+// the expiration [e, j), in pressure terms: over its last second (at most
+// half), the RMS about a parabola that the noise does not explain, of the
+// pressure, and of the flow through the recent resistance, beyond what
+// the noise gives; as an amplitude (√2·RMS), cmH2O.
+func (s *Segmenter) ripple(e, j int) float64 {
+	lo := j - 1
+	for lo > e+(j-e)/2 && s.t[j-1]-s.t[lo-1] <= 1 {
+		lo--
 	}
-	rf := s.recentR.median() * s.ripF / 60
-	return math.Sqrt2 * math.Sqrt(s.ripP*s.ripP+rf*rf)
+	sp, sf := s.noiseP(), s.noiseF()
+	step := max(1, (j-lo)/50) // about 50 samples are plenty for a slow oscillation
+	// the noise's own variance, and three standard errors of its estimate
+	// over these points, are not ripple
+	k := 1 + 3*math.Sqrt(2/float64((j-1-lo)/step+1))
+	rp := max(0, residualVar(s.t, s.paw, lo, j-1, step)-k*sp*sp)
+	rf := max(0, residualVar(s.t, s.flow, lo, j-1, step)-k*sf*sf) * (s.medR / 60) * (s.medR / 60)
+	return math.Sqrt2 * math.Sqrt(rp+rf)
 }
 
 // patientStart reports that the patient drew flow in during the first
@@ -439,18 +440,26 @@ func (s *Segmenter) patientStart(e int) bool {
 // same way and do not qualify.
 func (s *Segmenter) triggerDip(e, j int) bool {
 	tEnd := s.t[j]
-	from := j
-	for from > e+1 && tEnd-s.t[from-1] <= 0.5 {
+	from := j // the window: the last 0.3 s and 0.1 s before it, 3-sample means
+	for from > e+1 && tEnd-s.t[from-1] <= 0.4+1e-9 && j-from < len(s.scrP) {
 		from--
+	}
+	ps, fs := s.scrP[:j-from], s.scrF[:j-from]
+	fLo, fHi := math.Inf(1), math.Inf(-1)
+	for i := from; i < j; i++ {
+		ps[i-from] = (s.paw[i-1] + s.paw[i] + s.paw[i+1]) / 3
+		fs[i-from] = (s.flow[i-1] + s.flow[i] + s.flow[i+1]) / 3
+		fLo, fHi = min(fLo, fs[i-from]), max(fHi, fs[i-from])
 	}
 	dip := max(s.cfg.TriggerDip, 2*s.noiseP())
 	rise := max(s.cfg.StartFlow, 3*s.noiseF())
-	ps := func(i int) float64 { return (s.paw[i-1] + s.paw[i] + s.paw[i+1]) / 3 }
-	fs := func(i int) float64 { return (s.flow[i-1] + s.flow[i] + s.flow[i+1]) / 3 }
+	if fHi-fLo < rise {
+		return false // the flow never moved inward by as much
+	}
 	for b := j - 1; b > from && tEnd-s.t[b] <= 0.3+1e-9; b-- {
-		pb, fb := ps(b), fs(b)
+		pb, fb := ps[b-from]+dip, fs[b-from]-rise
 		for a := b - 1; a >= from && s.t[b]-s.t[a] <= 0.1+1e-9; a-- {
-			if ps(a)-pb >= dip && fb-fs(a) >= rise {
+			if ps[a-from] >= pb && fs[a-from] <= fb {
 				return true
 			}
 		}

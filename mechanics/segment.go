@@ -169,8 +169,6 @@ type Segmenter struct {
 	candBase  float64 // airway pressure before the candidate, cmH2O
 	candMax   float64 // highest airway pressure since the candidate's start, cmH2O
 	candPeak  float64 // highest flow since the candidate's start, L/min
-	inVol     float64 // inspired volume of the breath so far, L/min·s
-	outVol    float64 // volume of the current run of outward flow, L/min·s
 	pBase     float64 // the breath's pressure before its inflation, cmH2O
 	pTop      float64 // highest airway pressure of the inspiration, cmH2O
 	peakFlow  float64 // highest inspiratory flow of the breath, L/min
@@ -180,20 +178,21 @@ type Segmenter struct {
 	recentPF  ring8   // … and peak inspiratory flows, L/min
 	medVT     float64
 	medSw     float64
-	medPF     float64 // the medians of recentVT, recentSw and recentPF
+	medPF     float64
+	medR      float64 // the medians of recentVT, recentSw, recentPF and recentR
 	sigP      float64
 	sigF      float64 // pressure and flow noise (σ), cmH2O and L/min; NaN before the first breath
-	ripP      float64
-	ripF      float64 // slow ripple about a line at end expiration (RMS), cmH2O and L/min
 	seq       int64
 	afterDrop bool    // the next breath follows a dropped one
 	nextDip   bool    // an effort was seen just before the breath in progress
 	lastPEEP  float64 // the previous breath's PEEP, cmH2O; NaN at first
 	drops     Drops
 	out       Breath
-	si        siFit   // the stress-index fit's points, kept from breath to breath
-	lastSI    float64 // the previous stress index, where its fit starts; NaN for none
-	align     aligner // channel delay: estimate and alignment
+	si        siFit     // the stress-index fit's points, kept from breath to breath
+	lastSI    float64   // the previous stress index, where its fit starts; NaN for none
+	align     aligner   // channel delay: estimate and alignment
+	scrP      []float64 // scratch for per-breath tests, 1024 each
+	scrF      []float64
 }
 
 // NewSegmenter returns a segmenter for samples arriving at about rateHz
@@ -209,7 +208,7 @@ func NewSegmenter(cfg Config, rateHz float64) (*Segmenter, error) {
 	size := int(math.Min(math.Max(cfg.MaxBreath*rateHz*1.5, 1024), 1<<18))
 	s := &Segmenter{cfg: cfg, t: make([]float64, size), paw: make([]float64, size), flow: make([]float64, size),
 		si: newSIFit(), openSince: math.NaN(), deadline: math.Inf(1), lastPEEP: math.NaN(), lastSI: math.NaN(),
-		cand: -1, sigP: math.NaN(), sigF: math.NaN(), ripP: math.NaN(), ripF: math.NaN()}
+		cand: -1, sigP: math.NaN(), sigF: math.NaN(), scrP: make([]float64, 1024), scrF: make([]float64, 1024)}
 	s.align.init(cfg.FlowDelay, cfg.FlowDelayFixed, cfg.CircuitCompliance)
 	if cfg.Sex != "" {
 		s.pbw, _ = PredictedBodyWeight(cfg.Sex, cfg.HeightCm)
@@ -236,9 +235,18 @@ func (s *Segmenter) Add(t, paw, flow float64, gap bool) *Breath {
 		s.drop(&s.drops.Gap)
 		s.align.reset()
 	}
-	var ok bool
-	if paw, flow, ok = s.align.add(t, paw, flow); !ok {
-		return nil
+	// the aligner's add, by hand: the call costs more than the three stores
+	a := &s.align
+	a.ring[a.raw&(alignSize-1)] = rawSample{t, paw, flow}
+	a.raw++
+	if a.raw == a.wake {
+		a.wakeUp(t)
+	}
+	if a.lagP|a.lagF != 0 {
+		var ok bool
+		if paw, flow, ok = a.lagged(); !ok {
+			return nil
+		}
 	}
 	if s.n == len(s.t) {
 		s.drop(&s.drops.TooLong)
@@ -278,7 +286,7 @@ func (s *Segmenter) Add(t, paw, flow float64, gap bool) *Breath {
 			s.keepLast(16)
 		}
 	case stInsp:
-		s.inspiration(k, paw, flow, s.dv(k))
+		s.inspiration(k, paw, flow)
 	case stExp:
 		if flow > c.StartFlow && t-s.t[s.expStart] >= c.MinExp {
 			s.open1(k)
@@ -422,7 +430,7 @@ func (s *Segmenter) before(i int, d float64) int {
 //     ch. 3). Two samples: a skew of one sample between the channels,
 //     left after their alignment, is not an effort.
 func (s *Segmenter) drawn(lo, hi int, base float64) bool {
-	r := s.recentR.median() * 0.8
+	r := s.medR * 0.8
 	margin := max(0.2, 1.5*s.noiseP())
 	inflow := max(s.cfg.StartFlow, 3*s.noiseF())
 	dip, flat := -1, -1 // where each run of the condition began
@@ -506,15 +514,9 @@ func (a *pullSums) pulled(base, sigma float64) bool {
 // below the middle of its swing or a quarter of the inspired volume has
 // gone out; it starts where the ventilator let go of the pressure (see
 // valveOpening).
-func (s *Segmenter) inspiration(k int, paw, flow, dv float64) {
+func (s *Segmenter) inspiration(k int, paw, flow float64) {
 	c := &s.cfg
 	s.pTop, s.peakFlow = max(s.pTop, paw), max(s.peakFlow, flow)
-	if flow >= 0 {
-		s.outVol = 0
-	} else {
-		s.outVol -= dv
-	}
-	s.inVol += dv
 	switch {
 	case flow > c.StartFlow:
 		s.inspEnd = -1 // flow resumed: still inspiration
@@ -524,8 +526,7 @@ func (s *Segmenter) inspiration(k int, paw, flow, dv float64) {
 	if flow >= -c.ExpFlow || s.t[k] < s.inspMin {
 		return
 	}
-	falling := paw < (s.pTop+s.pBase)/2
-	if !falling && s.outVol < s.inVol/4 {
+	if falling := paw < (s.pTop+s.pBase)/2; !falling && !s.quarterOut(k) {
 		return
 	}
 	e := s.valveOpening(k)
@@ -534,6 +535,25 @@ func (s *Segmenter) inspiration(k int, paw, flow, dv float64) {
 	}
 	s.expStart, s.state = e, stExp
 	s.align.settle()
+}
+
+// quarterOut reports whether the run of outward flow that ends at k has
+// carried out a quarter of the volume inspired before it (volumes from the
+// buffer: this is asked only while outward flow meets a held pressure).
+func (s *Segmenter) quarterOut(k int) bool {
+	r := k
+	for r > 0 && s.flow[r-1] < 0 {
+		r--
+	}
+	var in, out float64
+	for i := 1; i <= k; i++ {
+		if i <= r {
+			in += s.dv(i)
+		} else {
+			out -= s.dv(i)
+		}
+	}
+	return out >= in/4
 }
 
 // valveOpening finds the first expiratory sample for an expiration
@@ -608,10 +628,9 @@ func (s *Segmenter) begin(j int) {
 	s.state, s.inspEnd, s.expStart = stInsp, -1, -1
 	s.deadline, s.inspMin = s.t[0]+s.cfg.MaxBreath, s.t[0]+s.cfg.MinInsp
 	s.pBase = s.candBase
-	s.pTop, s.peakFlow, s.inVol, s.outVol = s.paw[0], s.flow[0], 0, 0
+	s.pTop, s.peakFlow = s.paw[0], s.flow[0]
 	for i := 1; i < s.n; i++ {
 		s.pTop, s.peakFlow = max(s.pTop, s.paw[i]), max(s.peakFlow, s.flow[i])
-		s.inVol += (s.flow[i] + s.flow[i-1]) / 2 * (s.t[i] - s.t[i-1])
 	}
 	s.align.onset(s.n)
 }
@@ -634,6 +653,7 @@ func (s *Segmenter) finish(j int) *Breath {
 	s.medVT, s.medSw, s.medPF = s.recentVT.median(), s.recentSw.median(), s.recentPF.median()
 	if b.Reliable() {
 		s.recentR.add(b.FitR)
+		s.medR = s.recentR.median()
 	}
 	s.begin(j)
 	return b
@@ -648,7 +668,7 @@ func (s *Segmenter) drop(counter *int64) {
 	s.state, s.n, s.nextDip, s.lastPEEP, s.cand = stSync, 0, false, math.NaN(), -1
 	s.deadline = math.Inf(1)
 	s.recentVT, s.recentSw, s.recentR, s.recentPF = ring8{}, ring8{}, ring8{}, ring8{}
-	s.medVT, s.medSw, s.medPF = 0, 0, 0
+	s.medVT, s.medSw, s.medPF, s.medR = 0, 0, 0, 0
 }
 
 // shift moves samples [j, n) to the front of the buffer.
@@ -706,11 +726,39 @@ func (r *ring8) median() float64 {
 	if m == 0 {
 		return 0
 	}
-	var x [8]float64
-	copy(x[:], r.v[:m])
-	sortSmall(x[:m])
+	x := r.v
+	if m < len(x) {
+		sortSmall(x[:m])
+	} else {
+		sort8(&x)
+	}
 	if m%2 == 1 {
 		return x[m/2]
 	}
 	return (x[m/2-1] + x[m/2]) / 2
+}
+
+// sort8 sorts eight values by Batcher's odd–even merge network (19
+// compare-exchanges, no branches to mispredict).
+func sort8(x *[8]float64) {
+	ce := func(i, j int) { x[i], x[j] = min(x[i], x[j]), max(x[i], x[j]) }
+	ce(0, 1)
+	ce(2, 3)
+	ce(4, 5)
+	ce(6, 7)
+	ce(0, 2)
+	ce(1, 3)
+	ce(4, 6)
+	ce(5, 7)
+	ce(1, 2)
+	ce(5, 6)
+	ce(0, 4)
+	ce(1, 5)
+	ce(2, 6)
+	ce(3, 7)
+	ce(2, 4)
+	ce(3, 5)
+	ce(1, 2)
+	ce(3, 4)
+	ce(5, 6)
 }

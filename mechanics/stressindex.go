@@ -50,39 +50,49 @@ func (s *Segmenter) stressIndex(lo, hi int, origin float64) (b, r2, se float64) 
 		syy += py[k] * py[k]
 	}
 	b, _, ok := si.newton(py, s.lastSI)
+	mom := &si.mom
 	if !ok {
 		b = siBrent(si.lt, py, syy)
 		for k, l := range si.lt {
 			si.xs[k] = math.Exp(b * l)
 		}
-		si.at, si.series = b, 0
+		si.at, si.series, mom = b, 0, nil
 	}
 	s.lastSI = b
-	r2, se = siQuality(si.lt, si.xs, py, syy)
+	r2, se = siQuality(si.lt, si.xs, py, syy, mom)
 	return b, r2, se
 }
 
+// siMoments are the sums over the points of x = t^b, j = x·ln t and the
+// centred pressure y: Σx, Σj, Σx², Σxy, Σj², Σjx.
+type siMoments struct{ sx, sj, sxx, sxy, sjj, sjx float64 }
+
 // siQuality is the fit's R² and the standard error of its exponent, from
 // the points' x = t^b (xs, at the exponent found or within 1e-3 of it) and
-// centred pressures py: the residual variance over the information the
+// centred pressures py, with their moments (mom, from Newton's last step;
+// nil: taken here): the residual variance over the information the
 // points carry about b, Σ(∂P/∂b)² less the part a and c explain (the
 // usual linearised least-squares error; common practice, no source).
-func siQuality(lt, xs, py []float64, syy float64) (r2, se float64) {
+func siQuality(lt, xs, py []float64, syy float64, mom *siMoments) (r2, se float64) {
 	n := float64(len(xs))
-	var sx, sj float64
-	for k, x := range xs {
-		sx += x
-		sj += x * lt[k]
+	if mom == nil {
+		var m siMoments
+		for k, x := range xs {
+			l, y := lt[k], py[k]
+			m.sx += x
+			m.sj += x * l
+			m.sxx += x * x
+			m.sxy += x * y
+			m.sjj += x * l * x * l
+			m.sjx += x * l * x
+		}
+		mom = &m
 	}
-	mx, mj := sx/n, sj/n
-	var sxx, sxy, sjj, sjx float64
-	for k, x := range xs {
-		xc, jc := x-mx, x*lt[k]-mj
-		sxx += xc * xc
-		sxy += xc * py[k]
-		sjj += jc * jc
-		sjx += jc * xc
-	}
+	mx := mom.sx / n
+	sxx := mom.sxx - mom.sx*mom.sx/n
+	sxy := mom.sxy // the pressures are centred
+	sjj := mom.sjj - mom.sj*mom.sj/n
+	sjx := mom.sjx - mom.sj*mom.sx/n
 	if sxx <= 0 || n < 4 {
 		return nan, nan
 	}
@@ -139,6 +149,7 @@ type siFit struct {
 	at            float64   // the exponent xs holds, NaN for none
 	lmax          float64   // the largest |lt|
 	series        int       // steps taken by the series since xs were exact
+	mom           siMoments // the moments at the exponent xs hold, from Newton's last step
 }
 
 func newSIFit() siFit {
@@ -210,6 +221,7 @@ func (f *siFit) newton(py []float64, b0 float64) (b, explained float64, ok bool)
 			return nan, nan, false
 		}
 		explained = p * p / q // at the last exponent: within 1e-3 of b
+		f.mom = siMoments{sx: sx, sj: slx, sxx: sxx, sxy: p, sjj: sllxx, sjx: slxx}
 		g1 := (2*p*sp*q - p*p*q1) / (q * q)
 		g2 := (2*sp*sp+2*p*spp)/q - 4*p*sp*q1/(q*q) - p*p*q2/(q*q) + 2*p*p*q1*q1/(q*q*q)
 		if !(g2 < 0) {

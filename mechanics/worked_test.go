@@ -252,6 +252,25 @@ func TestMinimizeAgainstGrid(t *testing.T) {
 	}
 }
 
+// powerCurve is 48 points of 15 + 12·t^b over t in (0, 1] with noise σ 0.2
+// cmH2O: the logarithms of t, the centred pressures and their sum of
+// squares.
+func powerCurve(rng *rand.Rand, b float64) (lt, py []float64, syy float64) {
+	var my float64
+	for k := 1; k <= 48; k++ {
+		ti := float64(k) / 48
+		lt = append(lt, math.Log(ti))
+		p := 15 + 12*math.Pow(ti, b) + 0.2*rng.NormFloat64()
+		py = append(py, p)
+		my += p
+	}
+	for k := range py {
+		py[k] -= my / 48
+		syy += py[k] * py[k]
+	}
+	return lt, py, syy
+}
+
 // TestStressIndexNewtonAgainstBrent: the Newton steps from the previous
 // breath's exponent reach the same minimum of the fit's residual as
 // Brent's method over the whole range, on noisy curves a·t^b + c
@@ -263,21 +282,7 @@ func TestStressIndexNewtonAgainstBrent(t *testing.T) {
 	prev, fallbacks := math.NaN(), 0
 	for i := range 500 {
 		want := 0.6 + 0.9*rng.Float64()
-		var lt, py []float64
-		var my float64
-		for k := 1; k <= 48; k++ {
-			ti := float64(k) / 48
-			lt = append(lt, math.Log(ti))
-			p := 15 + 12*math.Pow(ti, want) + 0.2*rng.NormFloat64()
-			py = append(py, p)
-			my += p
-		}
-		my /= 48
-		var syy float64
-		for k := range py {
-			py[k] -= my
-			syy += py[k] * py[k]
-		}
+		lt, py, syy := powerCurve(rng, want)
 		f := siFit{lt: lt, xs: make([]float64, len(lt)), at: math.NaN(), lmax: -math.Log(1.0 / 48)}
 		got, _, ok := f.newton(py, prev)
 		ref := siBrent(lt, py, syy)
@@ -321,5 +326,24 @@ func TestStressIndexOfLinearLung(t *testing.T) {
 	t.Logf("stress index over %d breaths: median %.4f, quartiles %.4f–%.4f", len(si), med, q1, q3)
 	if math.Abs(med-1) > 0.02 || q1 < 0.95 || q3 > 1.05 {
 		t.Errorf("stress index median %.4f, quartiles %.4f–%.4f; want 1", med, q1, q3)
+	}
+}
+
+// TestStressIndexQualityFromNewton: the fit's R² and standard error from
+// the moments Newton's last step leaves are those taken afresh from the
+// points (the same sums; common practice, no source).
+func TestStressIndexQualityFromNewton(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	for range 50 {
+		lt, py, syy := powerCurve(rng, 0.7+0.7*rng.Float64())
+		f := siFit{lt: lt, xs: make([]float64, len(lt)), at: math.NaN(), lmax: -math.Log(1.0 / 48)}
+		if _, _, ok := f.newton(py, math.NaN()); !ok {
+			continue
+		}
+		r2a, sea := siQuality(lt, f.xs, py, syy, &f.mom)
+		r2b, seb := siQuality(lt, f.xs, py, syy, nil)
+		if !near(r2a, r2b, 1e-9) || !near(sea, seb, 1e-9*seb) {
+			t.Fatalf("from Newton R² %.12f se %.12f, afresh %.12f %.12f", r2a, sea, r2b, seb)
+		}
 	}
 }
