@@ -93,7 +93,7 @@ func (s *Segmenter) compute(b *Breath, j int) {
 		if math.IsNaN(pEnd) {
 			pEnd = b.PPeak
 		}
-		b.VTi -= cc * (pEnd - paw[0])
+		b.VTi -= cc * (pEnd - s.pBase) // from the pressure before the inflation
 		b.VTe -= cc * (pEnd - b.PEEP)
 	}
 	b.Leak = nan

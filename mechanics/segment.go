@@ -360,10 +360,11 @@ func (s *Segmenter) candidate(k int, paw, flow, dv float64) *Breath {
 // onset refines the start of a confirmed inflation whose flow first rose
 // above StartFlow/5 at c: the foot of the last rise to half its peak flow
 // so far (going back, where the flow stops falling or is down to a tenth
-// of the rise), or, when the patient drew flow in during the 0.2 s before that
-// rise (see drawn; a trigger's delay is shorter, a slow inflow that the
-// ventilator's own pressure drives is not drawn), where the flow turned
-// inward before c: the breath starts where the patient began to inhale.
+// of the rise), or, when the patient drew flow in during the 0.2 s before
+// that rise (see drawn; a trigger's delay is shorter, a slow inflow that
+// the ventilator's own pressure drives is not drawn), where the flow
+// turned inward before c: the breath starts where the patient began to
+// inhale.
 func (s *Segmenter) onset(c, k int) int {
 	// the flow as the mean of three samples, so that a fast flow sensor's
 	// ringing neither ends nor starts a rise
@@ -413,7 +414,7 @@ func (s *Segmenter) before(i int, d float64) int {
 
 // drawn reports whether the patient drew flow in during samples [lo, hi),
 // before the ventilator raised the airway pressure above base (the
-// pressure before the inflation). Two signs count, each against the
+// pressure before the inflation). Three signs count, each against the
 // pressure noise (3-sample means of pressure, margin 1.5 times its σ, 2.6
 // times the mean's):
 //   - a trigger dip: inward flow above StartFlow/2 while the pressure is
