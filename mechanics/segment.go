@@ -88,7 +88,7 @@ func (c *Config) Defaults() {
 func (c *Config) Validate() error {
 	for _, v := range []float64{c.StartFlow, c.EndFlow, c.PauseFlow, c.ExpFlow, c.MinInsp, c.MinExp,
 		c.MinPause, c.MaxBreath, c.OpenTime, c.FitR2Min, c.LeakLimit, c.EEFLimit, c.TriggerDip,
-		c.MinVT, c.MinRise, c.RelMin, c.PauseDecayLimit, c.PEEPiMin, c.CircuitCompliance} {
+		c.MinVT, c.MinRise, c.RelMin, c.PauseDecayLimit, c.PEEPiMin} {
 		if math.IsNaN(v) || v < 0 {
 			return errors.New("detection thresholds must be positive numbers")
 		}
@@ -102,8 +102,8 @@ func (c *Config) Validate() error {
 	if c.RelMin > 0.9 {
 		return fmt.Errorf("rel_min %g: at most 0.9 of the recent breaths", c.RelMin)
 	}
-	if c.CircuitCompliance > 10 {
-		return fmt.Errorf("circuit compliance %g mL/cmH2O: at most 10", c.CircuitCompliance)
+	if !(c.CircuitCompliance >= 0 && c.CircuitCompliance <= 10) {
+		return fmt.Errorf("circuit compliance %g mL/cmH2O: 0 (flow measured at the airway) to 10", c.CircuitCompliance)
 	}
 	if math.IsNaN(c.FlowDelay) || math.Abs(c.FlowDelay) > maxDelay {
 		return fmt.Errorf("flow delay %g s: at most ±%g s", c.FlowDelay, maxDelay)

@@ -70,6 +70,8 @@ func TestUserErrors(t *testing.T) {
 	badValue := write("value.yaml", "devices:\n  - id: a\n    stdin: true\n    format:\n      gap_limit: 5\n")
 	absent := write("absent.yaml", "devices:\n  - id: a\n    serial:\n      path: /dev/breathd-no-such-port\n")
 	empty := write("empty.yaml", "")
+	delay := write("delay.yaml", "devices:\n  - id: a\n    stdin: true\n    measurement:\n      flow_delay: soon\n")
+	circuit := write("circuit.yaml", "devices:\n  - id: a\n    stdin: true\n    measurement: {circuit_compliance: 40}\n")
 	tests := []struct {
 		name string
 		args []string
@@ -88,6 +90,9 @@ func TestUserErrors(t *testing.T) {
 		{"config typo", []string{"check", typo}, 1, typo + `:5: unknown key "bod" in devices[0].serial`},
 		{"config bad value", []string{"check", badValue}, 1, badValue + `:5: devices[0].format.gap_limit: "5" is not a duration`},
 		{"config empty", []string{"check", empty}, 1, "the file is empty"},
+		{"config bad delay", []string{"check", delay}, 1, delay + `:4: devices[0].measurement: flow delay "soon": want auto or a duration such as 20ms`},
+		{"config bad circuit", []string{"check", circuit}, 1, "circuit compliance 40 mL/cmH2O: 0 (flow measured at the airway) to 10"},
+		{"bad circuit flag", []string{"analyze", "--circuit-compliance", "-1", "x"}, 2, "circuit compliance -1 mL/cmH2O: 0 (flow measured at the airway) to 10"},
 		{"config missing", []string{"check", "/nonexistent.yaml"}, 1, "does not exist"},
 		{"absent port", []string{"run", "--no-mqtt", "--config", absent}, 1, "serial port /dev/breathd-no-such-port does not exist: check the cable"},
 		{"not a recording", []string{"replay", "--no-mqtt", "--speed", "max", "testdata"}, 1, "is a directory"},

@@ -267,6 +267,12 @@ func cmdCheck(args []string, stdout, stderr io.Writer) error {
 			format = "detected from the stream"
 		}
 		fmt.Fprintf(stdout, "  %-16s %s; format %s", d.ID, describeSource(&d), format)
+		if m := d.mechanics; m.CircuitCompliance > 0 {
+			fmt.Fprintf(stdout, "; circuit %g mL/cmH2O", m.CircuitCompliance)
+		}
+		if m := d.mechanics; m.FlowDelayFixed {
+			fmt.Fprintf(stdout, "; flow delay %g ms as configured", m.FlowDelay*1000)
+		}
 		if d.Record != nil {
 			fmt.Fprintf(stdout, "; recording to %s", d.Record.Dir)
 		}
