@@ -108,11 +108,11 @@ func NewEngine(device, run string, rules []Rule) (*Engine, error) {
 		st := state{r: r, kind: kind, index: -1, since: math.NaN(), last: math.NaN()}
 		switch kind {
 		case kindBreath:
-			st.index = index(r.Field)
+			st.index = mechanics.FieldIndex(r.Field)
 		case kindRolling:
 			e.trend = true
 			if stat, f, ok := strings.Cut(r.Field, "."); ok && (stat == "median" || stat == "iqr") {
-				st.index, st.rolling = index(f), stat
+				st.index, st.rolling = mechanics.FieldIndex(f), stat
 			} else {
 				st.rolling = r.Field
 			}
@@ -122,16 +122,7 @@ func NewEngine(device, run string, rules []Rule) (*Engine, error) {
 	return e, nil
 }
 
-var iPeak, iPlat = index("ppeak"), index("pplat")
-
-func index(field string) int {
-	for i, f := range mechanics.Fields {
-		if f == field {
-			return i
-		}
-	}
-	return -1
-}
+var iPeak, iPlat = mechanics.FieldIndex("ppeak"), mechanics.FieldIndex("pplat")
 
 // Breath evaluates the breath and rolling rules on a breath and returns
 // the transitions, valid until the next call. A value the breath's flags

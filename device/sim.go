@@ -7,7 +7,7 @@ import (
 	"sync"
 	"time"
 
-	"breathd/mechanics"
+	"breathd/mechanics/lungsim"
 )
 
 // SimFormat says how the simulated ventilator prints its lines.
@@ -27,7 +27,7 @@ type SimFormat struct {
 // printed as sample lines, either as fast as the reader takes them or in
 // real time.
 type Sim struct {
-	sim     *mechanics.Sim
+	sim     *lungsim.Sim
 	f       SimFormat
 	speed   float64 // 1 real time, N times faster, 0 as fast as the reader takes it
 	pDigits int     // decimals of paw
@@ -36,7 +36,7 @@ type Sim struct {
 
 	out   []byte // formatted, not yet read
 	buf   []byte // out's backing array, reused
-	s     mechanics.SimSample
+	s     lungsim.SimSample
 	done  chan struct{}
 	once  sync.Once
 	t0    time.Time
@@ -51,7 +51,7 @@ const linesPerChunk = 512
 // NewSim makes a simulated source for a scenario (defaults applied and
 // validated by the caller), released at speed times real time (0: as fast
 // as the reader takes it). truth, if set, receives each breath's truth.
-func NewSim(sc mechanics.Scenario, f SimFormat, speed float64, truth func(mechanics.Truth)) *Sim {
+func NewSim(sc lungsim.Scenario, f SimFormat, speed float64, truth func(lungsim.Truth)) *Sim {
 	if f.Delimiter == 0 {
 		f.Delimiter = ','
 	}
@@ -60,7 +60,7 @@ func NewSim(sc mechanics.Scenario, f SimFormat, speed float64, truth func(mechan
 			*p = 1
 		}
 	}
-	sim := mechanics.NewSim(sc, truth)
+	sim := lungsim.NewSim(sc, truth)
 	s := &Sim{sim: sim, f: f, speed: speed, done: make(chan struct{})}
 	d := sim.Scenario().Sensor.Digits
 	s.pDigits, s.fDigits = d+extraDigits(f.PawScale), d+extraDigits(f.FlowScale)

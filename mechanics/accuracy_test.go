@@ -1,4 +1,4 @@
-package mechanics
+package mechanics_test
 
 import (
 	"fmt"
@@ -6,28 +6,31 @@ import (
 	"sort"
 	"testing"
 	"time"
+
+	"breathd/mechanics"
+	"breathd/mechanics/lungsim"
 )
 
 // matched pairs a simulated breath's truth with the breath breathd found.
 type matched struct {
-	truth Truth
-	got   Breath
+	truth lungsim.Truth
+	got   mechanics.Breath
 }
 
 // runSim simulates sc through a Segmenter and pairs detected breaths with
 // the truths whose start lies within 60 ms.
-func runSim(t testing.TB, sc Scenario, cfg Config) (pairs []matched, truths []Truth, found []Breath) {
+func runSim(t testing.TB, sc lungsim.Scenario, cfg mechanics.Config) (pairs []matched, truths []lungsim.Truth, found []mechanics.Breath) {
 	t.Helper()
 	sc.Defaults()
 	if err := sc.Validate(); err != nil {
 		t.Fatal(err)
 	}
-	sim := NewSim(sc, func(tr Truth) { truths = append(truths, tr) })
-	seg, err := NewSegmenter(cfg, sc.RateHz)
+	sim := lungsim.NewSim(sc, func(tr lungsim.Truth) { truths = append(truths, tr) })
+	seg, err := mechanics.NewSegmenter(cfg, sc.RateHz)
 	if err != nil {
 		t.Fatal(err)
 	}
-	var s SimSample
+	var s lungsim.SimSample
 	for sim.Next(&s) {
 		// print to the sensor's digits, as the stream would carry them
 		p := math.Round(s.Paw*100) / 100
@@ -105,7 +108,7 @@ func (e errs) report() string {
 // detection counts the truths breathd could see (not the first, which the
 // stream starts inside, nor the last, which ends with the stream) that were
 // found, and the breaths found that match no truth.
-func detection(pairs []matched, truths []Truth, found []Breath) (recall, falsePct float64) {
+func detection(pairs []matched, truths []lungsim.Truth, found []mechanics.Breath) (recall, falsePct float64) {
 	seeable := len(truths) - 2
 	hit := 0
 	for _, p := range pairs {
@@ -125,18 +128,18 @@ func TestAccuracyAgainstSimulatorTruth(t *testing.T) {
 		"fit_c%": 3, "fit_r%": 5, "rr%": 1}
 	cases := []struct {
 		name string
-		set  Settings
+		set  lungsim.Settings
 	}{
-		{"vc pause", Settings{Mode: ModeVC, R: 10, C: 50, PEEP: 5, RR: 14.3, VT: 450, Ti: 1.2, Pause: 0.3}},
-		{"vc no pause", Settings{Mode: ModeVC, R: 12, C: 40, PEEP: 8, RR: 17.1, VT: 420, Ti: 1.0}},
-		{"vc decelerating", Settings{Mode: ModeVC, R: 8, C: 60, PEEP: 6, RR: 13.7, VT: 500, Ti: 1.3, Pause: 0.3, Flow: "decelerating"}},
-		{"pc", Settings{Mode: ModePC, R: 10, C: 50, PEEP: 5, RR: 14.3, Ti: 1.2, PInsp: 15, Rise: 0.1}},
+		{"vc pause", lungsim.Settings{Mode: lungsim.ModeVC, R: 10, C: 50, PEEP: 5, RR: 14.3, VT: 450, Ti: 1.2, Pause: 0.3}},
+		{"vc no pause", lungsim.Settings{Mode: lungsim.ModeVC, R: 12, C: 40, PEEP: 8, RR: 17.1, VT: 420, Ti: 1.0}},
+		{"vc decelerating", lungsim.Settings{Mode: lungsim.ModeVC, R: 8, C: 60, PEEP: 6, RR: 13.7, VT: 500, Ti: 1.3, Pause: 0.3, Flow: "decelerating"}},
+		{"pc", lungsim.Settings{Mode: lungsim.ModePC, R: 10, C: 50, PEEP: 5, RR: 14.3, Ti: 1.2, PInsp: 15, Rise: 0.1}},
 	}
 	for _, tc := range cases {
 		for _, rate := range []float64{50, 100, 200} {
-			sc := Scenario{Seed: 3, RateHz: rate, Duration: 30 * time.Minute, Settings: tc.set,
-				Sensor: Sensor{PawNoise: 0.2, FlowNoise: 0.5}}
-			pairs, truths, found := runSim(t, sc, Config{})
+			sc := lungsim.Scenario{Seed: 3, RateHz: rate, Duration: 30 * time.Minute, Settings: tc.set,
+				Sensor: lungsim.Sensor{PawNoise: 0.2, FlowNoise: 0.5}}
+			pairs, truths, found := runSim(t, sc, mechanics.Config{})
 			recall, falsePct := detection(pairs, truths, found)
 			e := accuracy(pairs)
 			t.Logf("%s %g Hz: %d breaths, found %.2f %%, false %.2f %%;%s", tc.name, rate, len(truths)-2, recall, falsePct, e.report())

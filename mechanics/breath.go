@@ -1,6 +1,8 @@
 // Package mechanics finds breaths in a pressure/flow stream and computes
-// their respiratory mechanics; it also holds the lung model that the
-// simulator drives. It does no I/O and no logging.
+// their respiratory mechanics, keeps the rolling window of them and says
+// which of their values can be trusted. It does no I/O and no logging; the
+// lung model that plays a patient for the simulator and the tests is
+// mechanics/lungsim, which the analysis never imports.
 //
 // Units everywhere: pressure cmH2O, flow L/min, volume mL, time s,
 // compliance mL/cmH2O, resistance cmH2O·s/L, power J/min. A value that
@@ -172,6 +174,9 @@ func (b *Breath) Field(name string) (float64, bool) {
 	var buf [40]float64
 	return b.Values(buf[:0])[i], true
 }
+
+// FieldIndex is the position of a field in Fields, or −1.
+func FieldIndex(name string) int { return fieldIndex(name) }
 
 func fieldIndex(name string) int {
 	for i, f := range Fields {

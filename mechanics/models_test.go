@@ -1,10 +1,13 @@
-package mechanics
+package mechanics_test
 
 import (
 	"fmt"
 	"math"
 	"testing"
 	"time"
+
+	"breathd/mechanics"
+	"breathd/mechanics/lungsim"
 )
 
 // modelCase is a simulated lung or sensor that is not the ideal single
@@ -12,52 +15,52 @@ import (
 // truth or carries a flag that says why.
 type modelCase struct {
 	name   string
-	set    Settings
-	sensor Sensor
-	cfg    Config
+	set    lungsim.Settings
+	sensor lungsim.Sensor
+	cfg    mechanics.Config
 }
 
 // vcPause and pcBase are the ventilators the models are breathed by.
 var (
-	vcPause = Settings{Mode: ModeVC, R: 10, C: 50, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.4}
-	pcBase  = Settings{Mode: ModePC, R: 10, C: 50, PEEP: 5, RR: 15, Ti: 1.0, PInsp: 12, Rise: 0.1}
-	noisy   = Sensor{PawNoise: 0.2, FlowNoise: 0.5}
+	vcPause = lungsim.Settings{Mode: lungsim.ModeVC, R: 10, C: 50, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.4}
+	pcBase  = lungsim.Settings{Mode: lungsim.ModePC, R: 10, C: 50, PEEP: 5, RR: 15, Ti: 1.0, PInsp: 12, Rise: 0.1}
+	noisy   = lungsim.Sensor{PawNoise: 0.2, FlowNoise: 0.5}
 )
 
-func with(s Settings, f func(*Settings)) Settings { f(&s); return s }
+func with(s lungsim.Settings, f func(*lungsim.Settings)) lungsim.Settings { f(&s); return s }
 
-func withSensor(f func(*Sensor)) Sensor { s := noisy; f(&s); return s }
+func withSensor(f func(*lungsim.Sensor)) lungsim.Sensor { s := noisy; f(&s); return s }
 
 // modelCases: each model the simulator knows, in volume control with a
 // pause and in pressure control, with typical adult values (invented,
 // within the ranges of the physiology references in ../shared/REFERENCES.md).
 var modelCases = []modelCase{
-	{name: "two compartments vc", set: with(vcPause, func(s *Settings) { s.R, s.C, s.C2, s.R2 = 6, 25, 25, 15 })},
-	{name: "two compartments pc", set: with(pcBase, func(s *Settings) { s.R, s.C, s.C2, s.R2 = 6, 25, 25, 15 })},
-	{name: "viscoelastic vc", set: with(vcPause, func(s *Settings) { s.ViscoC, s.ViscoR = 150, 3 })},
-	{name: "viscoelastic pc", set: with(pcBase, func(s *Settings) { s.ViscoC, s.ViscoR = 150, 3 })},
-	{name: "volume-dependent elastance vc", set: with(vcPause, func(s *Settings) { s.E2 = 20 })},
-	{name: "volume-dependent elastance pc", set: with(pcBase, func(s *Settings) { s.E2 = 20 })},
-	{name: "flow-dependent resistance vc", set: with(vcPause, func(s *Settings) { s.R, s.K2 = 5, 6 })},
-	{name: "flow-dependent resistance pc", set: with(pcBase, func(s *Settings) { s.R, s.K2 = 5, 6 })},
-	{name: "intrinsic PEEP vc", set: with(vcPause, func(s *Settings) { s.R, s.RR, s.Ti, s.Pause = 20, 22, 1.1, 0.3 })},
-	{name: "cardiac oscillation vc", set: with(vcPause, func(s *Settings) { s.CardiacP, s.CardiacRate = 0.5, 80 })},
-	{name: "cardiac oscillation pc", set: with(pcBase, func(s *Settings) { s.CardiacP, s.CardiacRate = 0.5, 80 })},
-	{name: "sensor low-pass vc", set: vcPause, sensor: withSensor(func(s *Sensor) { s.PawLag, s.FlowLag = 0.02, 0.02 })},
-	{name: "flow sensor lag vc", set: vcPause, sensor: withSensor(func(s *Sensor) { s.FlowLag = 0.02 })},
-	{name: "flow channel delay vc", set: vcPause, sensor: withSensor(func(s *Sensor) { s.FlowDelay = 0.02 })},
-	{name: "pressure channel delay pc", set: pcBase, sensor: withSensor(func(s *Sensor) { s.PawDelay = 0.02 })},
-	{name: "circuit vc", set: with(vcPause, func(s *Settings) { s.CircuitC, s.ValveTime = 1.5, 0.01 })},
-	{name: "circuit vc configured", set: with(vcPause, func(s *Settings) { s.CircuitC, s.ValveTime = 1.5, 0.01 }),
-		cfg: Config{CircuitCompliance: 1.5}},
-	{name: "valve ramps vc", set: with(vcPause, func(s *Settings) { s.ValveTime = 0.015 })},
-	{name: "exhalation valve pc", set: with(pcBase, func(s *Settings) { s.ValveR = 4 })},
+	{name: "two compartments vc", set: with(vcPause, func(s *lungsim.Settings) { s.R, s.C, s.C2, s.R2 = 6, 25, 25, 15 })},
+	{name: "two compartments pc", set: with(pcBase, func(s *lungsim.Settings) { s.R, s.C, s.C2, s.R2 = 6, 25, 25, 15 })},
+	{name: "viscoelastic vc", set: with(vcPause, func(s *lungsim.Settings) { s.ViscoC, s.ViscoR = 150, 3 })},
+	{name: "viscoelastic pc", set: with(pcBase, func(s *lungsim.Settings) { s.ViscoC, s.ViscoR = 150, 3 })},
+	{name: "volume-dependent elastance vc", set: with(vcPause, func(s *lungsim.Settings) { s.E2 = 20 })},
+	{name: "volume-dependent elastance pc", set: with(pcBase, func(s *lungsim.Settings) { s.E2 = 20 })},
+	{name: "flow-dependent resistance vc", set: with(vcPause, func(s *lungsim.Settings) { s.R, s.K2 = 5, 6 })},
+	{name: "flow-dependent resistance pc", set: with(pcBase, func(s *lungsim.Settings) { s.R, s.K2 = 5, 6 })},
+	{name: "intrinsic PEEP vc", set: with(vcPause, func(s *lungsim.Settings) { s.R, s.RR, s.Ti, s.Pause = 20, 22, 1.1, 0.3 })},
+	{name: "cardiac oscillation vc", set: with(vcPause, func(s *lungsim.Settings) { s.CardiacP, s.CardiacRate = 0.5, 80 })},
+	{name: "cardiac oscillation pc", set: with(pcBase, func(s *lungsim.Settings) { s.CardiacP, s.CardiacRate = 0.5, 80 })},
+	{name: "sensor low-pass vc", set: vcPause, sensor: withSensor(func(s *lungsim.Sensor) { s.PawLag, s.FlowLag = 0.02, 0.02 })},
+	{name: "flow sensor lag vc", set: vcPause, sensor: withSensor(func(s *lungsim.Sensor) { s.FlowLag = 0.02 })},
+	{name: "flow channel delay vc", set: vcPause, sensor: withSensor(func(s *lungsim.Sensor) { s.FlowDelay = 0.02 })},
+	{name: "pressure channel delay pc", set: pcBase, sensor: withSensor(func(s *lungsim.Sensor) { s.PawDelay = 0.02 })},
+	{name: "circuit vc", set: with(vcPause, func(s *lungsim.Settings) { s.CircuitC, s.ValveTime = 1.5, 0.01 })},
+	{name: "circuit vc configured", set: with(vcPause, func(s *lungsim.Settings) { s.CircuitC, s.ValveTime = 1.5, 0.01 }),
+		cfg: mechanics.Config{CircuitCompliance: 1.5}},
+	{name: "valve ramps vc", set: with(vcPause, func(s *lungsim.Settings) { s.ValveTime = 0.015 })},
+	{name: "exhalation valve pc", set: with(pcBase, func(s *lungsim.Settings) { s.ValveR = 4 })},
 	// a patient's effort of 8 cmH2O at its peak, and a ventilator that
 	// responds 0.1 s after the trigger (bench tests: 50–150 ms, Richard et
 	// al., Intensive Care Med 2002;28:1049, from memory); weaker efforts
 	// under a quicker trigger leave less than the noise before the
 	// ventilator's rise, and breathd cannot tell them (see README)
-	{name: "pressure support with effort", set: Settings{Mode: ModePS, R: 10, C: 50, PEEP: 5, RR: 8, PInsp: 10, Rise: 0.1,
+	{name: "pressure support with effort", set: lungsim.Settings{Mode: lungsim.ModePS, R: 10, C: 50, PEEP: 5, RR: 8, PInsp: 10, Rise: 0.1,
 		ValveR: 4, EffortRate: 18, EffortP: 8, EffortTime: 0.9, TriggerDelay: 0.1}},
 }
 
@@ -66,7 +69,7 @@ var modelCases = []modelCase{
 // cmH2O + 4 %, after the ventilator standard ISO 80601-2-12, from memory;
 // dp 2 cmH2O; compliance 20 %, resistance 30 %; our choice, common
 // practice, no source).
-func farFields(tr Truth, b *Breath, linear bool) map[string]bool {
+func farFields(tr lungsim.Truth, b *mechanics.Breath, linear bool) map[string]bool {
 	far := map[string]bool{}
 	rel := func(got, want float64) float64 { return math.Abs(got-want) / want }
 	if !math.IsNaN(b.VTi) {
@@ -102,10 +105,10 @@ func farFields(tr Truth, b *Breath, linear bool) map[string]bool {
 func TestModelsFlagWhatIsFar(t *testing.T) {
 	for _, mc := range modelCases {
 		sensor := mc.sensor
-		if sensor == (Sensor{}) {
+		if sensor == (lungsim.Sensor{}) {
 			sensor = noisy
 		}
-		sc := Scenario{Seed: 21, RateHz: 100, Duration: 10 * time.Minute, Settings: mc.set, Sensor: sensor}
+		sc := lungsim.Scenario{Seed: 21, RateHz: 100, Duration: 10 * time.Minute, Settings: mc.set, Sensor: sensor}
 		pairs, truths, found := runSim(t, sc, mc.cfg)
 		recall, falsePct := detection(pairs, truths, found)
 		unflagged := map[string]int{}
@@ -117,7 +120,7 @@ func TestModelsFlagWhatIsFar(t *testing.T) {
 				if !isFar {
 					continue
 				}
-				if p.got.Untrusted(fieldIndex(f)) {
+				if p.got.Untrusted(mechanics.FieldIndex(f)) {
 					flagged[f]++
 					continue
 				}
@@ -146,7 +149,7 @@ func TestModelsFlagWhatIsFar(t *testing.T) {
 // value is trusted (not NaN, no flag against it), and how many there were.
 func trustedMedian(pairs []matched, f string) (float64, int) {
 	var x []float64
-	i := fieldIndex(f)
+	i := mechanics.FieldIndex(f)
 	for _, p := range pairs {
 		if v, _ := p.got.Field(f); !math.IsNaN(v) && !p.got.Untrusted(i) {
 			x = append(x, v)
@@ -160,13 +163,13 @@ func trustedMedian(pairs []matched, f string) (float64, int) {
 // 20 ms first-order lag, or a 20 ms delay of the flow channel: the median
 // of the trusted indices within 0.90–1.10, on most breaths.
 func TestStressIndexWithSensorLag(t *testing.T) {
-	for _, sn := range []Sensor{
-		withSensor(func(s *Sensor) { s.FlowLag = 0.02 }),
-		withSensor(func(s *Sensor) { s.FlowDelay = 0.02 }),
-		withSensor(func(s *Sensor) { s.PawLag, s.FlowLag = 0.02, 0.02 }),
+	for _, sn := range []lungsim.Sensor{
+		withSensor(func(s *lungsim.Sensor) { s.FlowLag = 0.02 }),
+		withSensor(func(s *lungsim.Sensor) { s.FlowDelay = 0.02 }),
+		withSensor(func(s *lungsim.Sensor) { s.PawLag, s.FlowLag = 0.02, 0.02 }),
 	} {
-		sc := Scenario{Seed: 5, RateHz: 100, Duration: 10 * time.Minute, Settings: vcPause, Sensor: sn}
-		pairs, _, _ := runSim(t, sc, Config{})
+		sc := lungsim.Scenario{Seed: 5, RateHz: 100, Duration: 10 * time.Minute, Settings: vcPause, Sensor: sn}
+		pairs, _, _ := runSim(t, sc, mechanics.Config{})
 		m, n := trustedMedian(pairs, "si")
 		t.Logf("lag %g s, delay %g s: stress index median %.3f over %d of %d breaths", sn.FlowLag, sn.FlowDelay, m, n, len(pairs))
 		if !(m >= 0.9 && m <= 1.1) || n < len(pairs)*8/10 {
@@ -180,9 +183,9 @@ func TestStressIndexWithSensorLag(t *testing.T) {
 // highest airway pressure at a sample) on every breath.
 func TestPeakWithValveRamps(t *testing.T) {
 	for _, vt := range []float64{0.01, 0.015, 0.02} {
-		set := with(vcPause, func(s *Settings) { s.ValveTime = vt })
-		sc := Scenario{Seed: 6, RateHz: 100, Duration: 5 * time.Minute, Settings: set, Sensor: noisy}
-		pairs, _, _ := runSim(t, sc, Config{})
+		set := with(vcPause, func(s *lungsim.Settings) { s.ValveTime = vt })
+		sc := lungsim.Scenario{Seed: 6, RateHz: 100, Duration: 5 * time.Minute, Settings: set, Sensor: noisy}
+		pairs, _, _ := runSim(t, sc, mechanics.Config{})
 		worst, sum := 0.0, 0.0
 		for _, p := range pairs {
 			d := math.Abs(p.got.PPeak - p.truth.Peak)
@@ -203,9 +206,9 @@ func TestPeakWithValveRamps(t *testing.T) {
 // Am Rev Respir Dis 1982;126:166), flagged intrinsic_peep.
 func TestDrivingPressureWithIntrinsicPEEP(t *testing.T) {
 	for _, tc := range []struct{ r, rr float64 }{{17, 20}, {19, 21.5}, {21, 22.5}} {
-		set := with(vcPause, func(s *Settings) { s.R, s.RR, s.Ti, s.Pause = tc.r, tc.rr, 1.1, 0.3 })
-		sc := Scenario{Seed: 7, RateHz: 100, Duration: 5 * time.Minute, Settings: set, Sensor: noisy}
-		pairs, _, _ := runSim(t, sc, Config{})
+		set := with(vcPause, func(s *lungsim.Settings) { s.R, s.RR, s.Ti, s.Pause = tc.r, tc.rr, 1.1, 0.3 })
+		sc := lungsim.Scenario{Seed: 7, RateHz: 100, Duration: 5 * time.Minute, Settings: set, Sensor: noisy}
+		pairs, _, _ := runSim(t, sc, mechanics.Config{})
 		var ipeep, errs []float64
 		flagged := 0
 		for i, p := range pairs[:len(pairs)-1] {
@@ -215,7 +218,7 @@ func TestDrivingPressureWithIntrinsicPEEP(t *testing.T) {
 			}
 			ipeep = append(ipeep, next.IPEEP)
 			errs = append(errs, math.Abs(p.got.DP-p.truth.DP))
-			if p.got.Flags&FlagIntrinsicPEEP != 0 {
+			if p.got.Flags&mechanics.FlagIntrinsicPEEP != 0 {
 				flagged++
 			}
 		}
@@ -236,13 +239,13 @@ func TestDrivingPressureWithIntrinsicPEEP(t *testing.T) {
 // gas as tidal volume; with the circuit's compliance configured, VT is
 // within 2 % of the lung's.
 func TestVolumeThroughCircuit(t *testing.T) {
-	for _, set := range []Settings{
-		with(vcPause, func(s *Settings) { s.CircuitC, s.ValveTime = 1.5, 0.01 }),
-		with(pcBase, func(s *Settings) { s.CircuitC, s.ValveTime = 1.5, 0.01 }),
+	for _, set := range []lungsim.Settings{
+		with(vcPause, func(s *lungsim.Settings) { s.CircuitC, s.ValveTime = 1.5, 0.01 }),
+		with(pcBase, func(s *lungsim.Settings) { s.CircuitC, s.ValveTime = 1.5, 0.01 }),
 	} {
-		sc := Scenario{Seed: 8, RateHz: 100, Duration: 5 * time.Minute, Settings: set, Sensor: noisy}
+		sc := lungsim.Scenario{Seed: 8, RateHz: 100, Duration: 5 * time.Minute, Settings: set, Sensor: noisy}
 		for _, cc := range []float64{0, 1.5} {
-			pairs, _, _ := runSim(t, sc, Config{CircuitCompliance: cc})
+			pairs, _, _ := runSim(t, sc, mechanics.Config{CircuitCompliance: cc})
 			e := accuracy(pairs)
 			t.Logf("%s, circuit compliance configured %g: VT error median %.2f %%", set.Mode, cc, median(e["vt%"]))
 			if cc > 0 && median(e["vt%"]) > 2 {

@@ -6,6 +6,12 @@ import (
 	"strings"
 )
 
+// Patient is what predicted body weight needs.
+type Patient struct {
+	Sex      string  `yaml:"sex"`       // male or female
+	HeightCm float64 `yaml:"height_cm"` // cm
+}
+
 // PredictedBodyWeight returns the ARDS Network predicted body weight in kg
 // for sex "male" or "female" and height in cm:
 // male 50 + 0.91·(height − 152.4), female 45.5 + 0.91·(height − 152.4)

@@ -5,7 +5,6 @@ import (
 	"math/rand/v2"
 	"slices"
 	"testing"
-	"time"
 
 	"gonum.org/v1/gonum/stat"
 )
@@ -56,68 +55,6 @@ func TestWindowSlopes(t *testing.T) {
 	}
 }
 
-// attributionOf runs a scenario through detection and the window and
-// returns the trend at the time given.
-func attributionOf(t *testing.T, sc Scenario, at float64) Attribution {
-	t.Helper()
-	sc.Defaults()
-	if err := sc.Validate(); err != nil {
-		t.Fatal(err)
-	}
-	sim := NewSim(sc, nil)
-	seg, _ := NewSegmenter(Config{}, sc.RateHz)
-	w, _ := NewWindow(WindowConfig{})
-	var last Attribution
-	var s SimSample
-	for sim.Next(&s) && s.T < at {
-		if b := seg.Add(s.T, s.Paw, s.Flow, false); b != nil {
-			w.Add(b)
-			last = w.Trend().Rise
-		}
-	}
-	return last
-}
-
-// TestRiseAttribution: the peak pressure is the resistive part (R × flow,
-// the peak–plateau gap) plus the elastic part (VT/C, plateau above PEEP).
-// A bronchospasm raises the gap past 10 cmH2O with the plateau flat; a
-// stiffening lung raises plateau and peak with the gap flat (physiology
-// teaching; common practice, no source).
-func TestRiseAttribution(t *testing.T) {
-	noise := Sensor{PawNoise: 0.2, FlowNoise: 0.5}
-	spasm := Scenario{Seed: 1, RateHz: 50, Duration: 60 * time.Minute, Sensor: noise,
-		Settings: Settings{Mode: ModeVC, R: 10, C: 45, PEEP: 6, RR: 14, VT: 430, Ti: 1.2, Pause: 0.3},
-		Timeline: []Change{{At: 36 * time.Minute, Ramp: 3 * time.Minute, Set: map[string]float64{"r": 30}}}}
-	a := attributionOf(t, spasm, 44*60)
-	t.Logf("bronchospasm: %+v", a)
-	// the slower exhalation leaves about 1 cmH2O of intrinsic PEEP
-	// (τ = 30·0.045 = 1.35 s, Te 3.1 s: e^(−2.3) of the 9.5 cmH2O), which
-	// shows as a small elastic rise
-	if a.Cause != RiseResistive || a.Method != "plateau" || a.ResistiveRise < 8 || math.Abs(a.ElasticRise) > 1.5 {
-		t.Errorf("bronchospasm attributed %+v", a)
-	}
-	stiff := Scenario{Seed: 2, RateHz: 50, Duration: 60 * time.Minute, Sensor: noise,
-		Settings: Settings{Mode: ModeVC, R: 10, C: 50, PEEP: 8, RR: 18, VT: 480, Ti: 1.0, Pause: 0.3},
-		Timeline: []Change{{At: 35 * time.Minute, Ramp: 5 * time.Minute, Set: map[string]float64{"c": 28}}}}
-	a = attributionOf(t, stiff, 46*60)
-	t.Logf("stiffening: %+v", a)
-	if a.Cause != RiseElastic || a.ElasticRise < 5 || math.Abs(a.ResistiveRise) > 1 {
-		t.Errorf("stiffening attributed %+v", a)
-	}
-	// without pauses the fitted R and C decide
-	stiff.Settings.Pause = 0
-	a = attributionOf(t, stiff, 46*60)
-	t.Logf("stiffening without pauses: %+v", a)
-	if a.Cause != RiseElastic || a.Method != "fit" {
-		t.Errorf("stiffening without pauses attributed %+v", a)
-	}
-	steady := stiff
-	steady.Timeline = nil
-	if a = attributionOf(t, steady, 46*60); a.Cause != RiseNone {
-		t.Errorf("steady attributed %+v", a)
-	}
-}
-
 func TestWindowDoesNotAllocate(t *testing.T) {
 	w, _ := NewWindow(WindowConfig{})
 	b := Breath{TStart: 0, TEnd: 4, VTi: 500, PPlat: 20, PEEP: 5, PPeak: 30, FitC: 33, Cstat: 33}
@@ -133,29 +70,6 @@ func TestWindowDoesNotAllocate(t *testing.T) {
 	})
 	if allocs != 0 {
 		t.Errorf("%v allocations per Add", allocs)
-	}
-}
-
-// TestNetFlowShowsDrift: a flow sensor drifting by +3 L/min shows as a net
-// inward flow of about 3 L/min over the window (the drift adds 3 L/min ×
-// the breath's duration to vti − vte; common practice, no source).
-func TestNetFlowShowsDrift(t *testing.T) {
-	sc := Scenario{Seed: 2, RateHz: 100, Duration: 5 * time.Minute,
-		Settings: Settings{Mode: ModeVC, R: 10, C: 50, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3},
-		Sensor:   Sensor{PawNoise: 0.2, FlowNoise: 0.5, FlowDrift: 36}} // 36 L/min per hour: 3 L/min at 5 min
-	sc.Defaults()
-	sim := NewSim(sc, nil)
-	seg, _ := NewSegmenter(Config{}, 100)
-	w, _ := NewWindow(WindowConfig{})
-	var s SimSample
-	for sim.Next(&s) {
-		if b := seg.Add(s.T, s.Paw, s.Flow, false); b != nil {
-			w.Add(b)
-		}
-	}
-	// the window holds the last 20 breaths (about 80 s): the drift then is 2.2–3 L/min
-	if nf := w.Trend().NetFlow; nf < 2 || nf > 3.2 {
-		t.Errorf("net flow %.2f L/min, want the drift of about 2.6", nf)
 	}
 }
 
@@ -192,14 +106,23 @@ func TestMedianOfAgainstSort(t *testing.T) {
 // sorted afresh (a sort is the reference; common practice, no source),
 // over an hour of breaths whose window also loses breaths by age.
 func TestSortedPartsAgainstSort(t *testing.T) {
-	sc := Scenario{Seed: 9, RateHz: 100, Duration: time.Hour,
-		Settings: Settings{Mode: ModeVC, R: 10, C: 50, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3},
-		Sensor:   Sensor{PawNoise: 0.2, FlowNoise: 0.5},
-		Timeline: []Change{{At: 20 * time.Minute, Ramp: 10 * time.Minute, Set: map[string]float64{"rr": 25}}}}
-	pairs, _, _ := runSim(t, sc, Config{})
+	// an hour of breaths whose rate rises from 15 to 25 a minute, values
+	// wandering, a plateau on some, an unreliable fit on others
+	rng := rand.New(rand.NewPCG(9, 10))
 	w, _ := NewWindow(WindowConfig{Breaths: 20, Span: 60})
-	for i, p := range pairs {
-		b := p.got
+	ts := 0.0
+	for i := range 1100 {
+		period := 60 / (15 + 10*min(1, float64(i)/500))
+		b := Breath{TStart: ts, TEnd: ts + period, VTi: 450 + 20*rng.NormFloat64(), PEEP: 5 + 0.1*rng.NormFloat64(),
+			PPeak: 20 + rng.NormFloat64(), PPlat: nan, Cstat: nan, FitC: 50 + 3*rng.NormFloat64()}
+		if i%3 == 0 {
+			b.PPlat = 14 + 0.5*rng.NormFloat64()
+			b.Cstat = b.VTi / (b.PPlat - b.PEEP)
+		}
+		if i%7 == 0 {
+			b.Flags = FlagFitUnreliable
+		}
+		ts += period
 		w.Add(&b)
 		w.Trend()
 		parts := w.windowParts(w.idx)

@@ -12,14 +12,15 @@ import (
 	"breathd/alerts"
 	"breathd/device"
 	"breathd/mechanics"
+	"breathd/mechanics/lungsim"
 )
 
 // simDay is 24 h at 100 Hz of the steady passive adult from the lung
 // simulator, as printed lines (8.64 M samples, about 175 MB).
 var simDay = sync.OnceValue(func() []byte {
-	sc := mechanics.Scenario{Seed: 1, RateHz: 100, Duration: 24 * time.Hour,
-		Settings: mechanics.Settings{Mode: mechanics.ModeVC, R: 10, C: 50, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3},
-		Sensor:   mechanics.Sensor{PawNoise: 0.2, FlowNoise: 0.5}}
+	sc := lungsim.Scenario{Seed: 1, RateHz: 100, Duration: 24 * time.Hour,
+		Settings: lungsim.Settings{Mode: lungsim.ModeVC, R: 10, C: 50, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3},
+		Sensor:   lungsim.Sensor{PawNoise: 0.2, FlowNoise: 0.5}}
 	sc.Defaults()
 	src := device.NewSim(sc, device.SimFormat{Header: true}, 0, nil)
 	var buf bytes.Buffer

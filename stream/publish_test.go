@@ -12,7 +12,7 @@ import (
 
 	"breathd/alerts"
 	"breathd/device"
-	"breathd/mechanics"
+	"breathd/mechanics/lungsim"
 
 	mqtt "github.com/eclipse/paho.mqtt.golang"
 	"github.com/rs/zerolog"
@@ -100,8 +100,8 @@ func TestPublishToEmbeddedBroker(t *testing.T) {
 	pub.SetAck(ctl.Ack)
 	// a latching driving-pressure rule on a stiff lung, so that there is something to acknowledge
 	rules, _ := alerts.Merge(alerts.Defaults(), []alerts.Rule{{ID: "driving_pressure_high", Latching: true}})
-	sc := mechanics.Scenario{Seed: 3, RateHz: 100, Duration: 3 * time.Minute,
-		Settings: mechanics.Settings{Mode: mechanics.ModeVC, R: 10, C: 25, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3}}
+	sc := lungsim.Scenario{Seed: 3, RateHz: 100, Duration: 3 * time.Minute,
+		Settings: lungsim.Settings{Mode: lungsim.ModeVC, R: 10, C: 25, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3}}
 	sc.Defaults()
 	src := device.NewSim(sc, device.SimFormat{Header: true}, 0, nil)
 	st, err := Run(context.Background(), src, Config{Device: "bed9", Rules: rules, Sink: Sinks{pub}, Control: ctl})
@@ -189,8 +189,8 @@ func TestAckAcknowledgesLatchingRule(t *testing.T) {
 	}
 	pub.SetAck(ctl.Ack)
 	rules, _ := alerts.Merge(alerts.Defaults(), []alerts.Rule{{ID: "driving_pressure_high", Latching: true}})
-	sc := mechanics.Scenario{Seed: 3, RateHz: 100, Duration: time.Hour,
-		Settings: mechanics.Settings{Mode: mechanics.ModeVC, R: 10, C: 25, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3}}
+	sc := lungsim.Scenario{Seed: 3, RateHz: 100, Duration: time.Hour,
+		Settings: lungsim.Settings{Mode: lungsim.ModeVC, R: 10, C: 25, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3}}
 	sc.Defaults()
 	src := device.NewSim(sc, device.SimFormat{Header: true}, 20, nil) // 20× real time
 	ctx, cancel := context.WithCancel(context.Background())

@@ -11,6 +11,7 @@ import (
 	"breathd/alerts"
 	"breathd/device"
 	"breathd/mechanics"
+	"breathd/mechanics/lungsim"
 )
 
 // collect keeps events and the trend at each event.
@@ -37,14 +38,14 @@ func (c *collect) first(rule, transition string) (alerts.Event, int, bool) {
 
 // simulate runs a scenario through the whole device loop with the default
 // rules and returns the events and the truths.
-func simulate(t *testing.T, sc mechanics.Scenario) (*collect, []mechanics.Truth) {
+func simulate(t *testing.T, sc lungsim.Scenario) (*collect, []lungsim.Truth) {
 	t.Helper()
 	sc.Defaults()
 	if err := sc.Validate(); err != nil {
 		t.Fatal(err)
 	}
-	var truths []mechanics.Truth
-	src := device.NewSim(sc, device.SimFormat{Header: true}, 0, func(tr mechanics.Truth) { truths = append(truths, tr) })
+	var truths []lungsim.Truth
+	src := device.NewSim(sc, device.SimFormat{Header: true}, 0, func(tr lungsim.Truth) { truths = append(truths, tr) })
 	c := &collect{}
 	mcfg := mechanics.Config{Sex: sc.Patient.Sex, HeightCm: sc.Patient.HeightCm}
 	if _, err := Run(context.Background(), src, Config{Device: "sim", Mechanics: mcfg, Rules: alerts.Defaults(), Sink: c}); err != nil {
@@ -53,16 +54,16 @@ func simulate(t *testing.T, sc mechanics.Scenario) (*collect, []mechanics.Truth)
 	return c, truths
 }
 
-var noise = mechanics.Sensor{PawNoise: 0.2, FlowNoise: 0.5}
+var noise = lungsim.Sensor{PawNoise: 0.2, FlowNoise: 0.5}
 
 // TestStiffeningRaisesDrivingPressure: driving pressure over 15 cmH2O
 // (Amato 2015; Aoyama 2018) is raised a few breaths after the true driving
 // pressure crosses 15 and not before.
 func TestStiffeningRaisesDrivingPressure(t *testing.T) {
-	sc := mechanics.Scenario{Seed: 12, RateHz: 100, Duration: 40 * time.Minute, Sensor: noise,
+	sc := lungsim.Scenario{Seed: 12, RateHz: 100, Duration: 40 * time.Minute, Sensor: noise,
 		Patient:  mechanics.Patient{Sex: "male", HeightCm: 175},
-		Settings: mechanics.Settings{Mode: mechanics.ModeVC, R: 10, C: 50, PEEP: 8, RR: 18, VT: 480, Ti: 1.0, Pause: 0.3},
-		Timeline: []mechanics.Change{{At: 5 * time.Minute, Ramp: 30 * time.Minute, Set: map[string]float64{"c": 28}}}}
+		Settings: lungsim.Settings{Mode: lungsim.ModeVC, R: 10, C: 50, PEEP: 8, RR: 18, VT: 480, Ti: 1.0, Pause: 0.3},
+		Timeline: []lungsim.Change{{At: 5 * time.Minute, Ramp: 30 * time.Minute, Set: map[string]float64{"c": 28}}}}
 	c, truths := simulate(t, sc)
 	ev, _, ok := c.first("driving_pressure_high", alerts.Raised)
 	if !ok {
@@ -92,9 +93,9 @@ func TestStiffeningRaisesDrivingPressure(t *testing.T) {
 // cmH2O (common practice, no source) and the rise is attributed to the
 // resistive part.
 func TestBronchospasmRaisesGapAsResistive(t *testing.T) {
-	sc := mechanics.Scenario{Seed: 13, RateHz: 100, Duration: 45 * time.Minute, Sensor: noise,
-		Settings: mechanics.Settings{Mode: mechanics.ModeVC, R: 10, C: 45, PEEP: 6, RR: 14, VT: 430, Ti: 1.2, Pause: 0.3},
-		Timeline: []mechanics.Change{{At: 33 * time.Minute, Ramp: 3 * time.Minute, Set: map[string]float64{"r": 30}},
+	sc := lungsim.Scenario{Seed: 13, RateHz: 100, Duration: 45 * time.Minute, Sensor: noise,
+		Settings: lungsim.Settings{Mode: lungsim.ModeVC, R: 10, C: 45, PEEP: 6, RR: 14, VT: 430, Ti: 1.2, Pause: 0.3},
+		Timeline: []lungsim.Change{{At: 33 * time.Minute, Ramp: 3 * time.Minute, Set: map[string]float64{"r": 30}},
 			{At: 40 * time.Minute, Ramp: 2 * time.Minute, Set: map[string]float64{"r": 10}}}}
 	c, _ := simulate(t, sc)
 	ev, i, ok := c.first("peak_plateau_gap_high", alerts.Raised)
@@ -119,9 +120,9 @@ func TestBronchospasmRaisesGapAsResistive(t *testing.T) {
 // TestDisconnectionRaisesCircuitOpen: within the configured delay (open
 // for 1 s, then 4 s, evaluated each second) and cleared after.
 func TestDisconnectionRaisesCircuitOpen(t *testing.T) {
-	sc := mechanics.Scenario{Seed: 15, RateHz: 100, Duration: 10 * time.Minute, Sensor: noise,
-		Settings: mechanics.Settings{Mode: mechanics.ModeVC, R: 11, C: 48, PEEP: 7, RR: 16, VT: 400, Ti: 1.1, Pause: 0.25},
-		Timeline: []mechanics.Change{{At: 4 * time.Minute, Disconnect: 40 * time.Second}}}
+	sc := lungsim.Scenario{Seed: 15, RateHz: 100, Duration: 10 * time.Minute, Sensor: noise,
+		Settings: lungsim.Settings{Mode: lungsim.ModeVC, R: 11, C: 48, PEEP: 7, RR: 16, VT: 400, Ti: 1.1, Pause: 0.25},
+		Timeline: []lungsim.Change{{At: 4 * time.Minute, Disconnect: 40 * time.Second}}}
 	c, _ := simulate(t, sc)
 	up, _, ok1 := c.first("circuit_open", alerts.Raised)
 	down, _, ok2 := c.first("circuit_open", alerts.Cleared)
@@ -142,9 +143,9 @@ func TestSteadyRaisesNothing(t *testing.T) {
 	if raceEnabled || testing.Short() {
 		hours = 6
 	}
-	sc := mechanics.Scenario{Seed: 11, RateHz: 100, Duration: time.Duration(hours * float64(time.Hour)), Sensor: noise,
+	sc := lungsim.Scenario{Seed: 11, RateHz: 100, Duration: time.Duration(hours * float64(time.Hour)), Sensor: noise,
 		Patient:  mechanics.Patient{Sex: "female", HeightCm: 165},
-		Settings: mechanics.Settings{Mode: mechanics.ModeVC, R: 9, C: 55, PEEP: 6, RR: 16, VT: 420, Ti: 1.1, Pause: 0.3}}
+		Settings: lungsim.Settings{Mode: lungsim.ModeVC, R: 9, C: 55, PEEP: 6, RR: 16, VT: 420, Ti: 1.1, Pause: 0.3}}
 	c, truths := simulate(t, sc)
 	t.Logf("%.0f h, %d breaths, %d events", hours, len(truths), len(c.events))
 	for _, ev := range c.events {
@@ -156,9 +157,9 @@ func TestSteadyRaisesNothing(t *testing.T) {
 // gives the same breaths and the same events, with the same wall-clock
 // times from the recording's clock directives, as the plain loop.
 func TestAheadSameAsInline(t *testing.T) {
-	sc := mechanics.Scenario{Seed: 12, RateHz: 100, Duration: 40 * time.Minute, Sensor: noise,
-		Settings: mechanics.Settings{Mode: mechanics.ModeVC, R: 10, C: 50, PEEP: 8, RR: 18, VT: 480, Ti: 1.0, Pause: 0.3},
-		Timeline: []mechanics.Change{{At: 5 * time.Minute, Ramp: 30 * time.Minute, Set: map[string]float64{"c": 28}}}}
+	sc := lungsim.Scenario{Seed: 12, RateHz: 100, Duration: 40 * time.Minute, Sensor: noise,
+		Settings: lungsim.Settings{Mode: lungsim.ModeVC, R: 10, C: 50, PEEP: 8, RR: 18, VT: 480, Ti: 1.0, Pause: 0.3},
+		Timeline: []lungsim.Change{{At: 5 * time.Minute, Ramp: 30 * time.Minute, Set: map[string]float64{"c": 28}}}}
 	sc.Defaults()
 	var raw bytes.Buffer
 	io.Copy(&raw, device.NewSim(sc, device.SimFormat{Header: true}, 0, nil))

@@ -12,6 +12,7 @@ import (
 	"breathd/alerts"
 	"breathd/device"
 	"breathd/mechanics"
+	"breathd/mechanics/lungsim"
 
 	mqtt "github.com/eclipse/paho.mqtt.golang"
 	"github.com/rs/zerolog"
@@ -64,14 +65,14 @@ func TestSoak(t *testing.T) {
 		t.Fatal(err)
 	}
 	// a lung that stiffens and recovers every two hours, so that rules are raised and cleared all along
-	sc := mechanics.Scenario{Seed: 21, RateHz: 100, Duration: time.Duration(hours * float64(time.Hour)),
-		Settings: mechanics.Settings{Mode: mechanics.ModeVC, R: 10, C: 50, PEEP: 6, RR: 16, VT: 480, Ti: 1.1, Pause: 0.3},
-		Sensor:   mechanics.Sensor{PawNoise: 0.2, FlowNoise: 0.5}}
+	sc := lungsim.Scenario{Seed: 21, RateHz: 100, Duration: time.Duration(hours * float64(time.Hour)),
+		Settings: lungsim.Settings{Mode: lungsim.ModeVC, R: 10, C: 50, PEEP: 6, RR: 16, VT: 480, Ti: 1.1, Pause: 0.3},
+		Sensor:   lungsim.Sensor{PawNoise: 0.2, FlowNoise: 0.5}}
 	for h := 0.0; h < hours; h += 2 {
 		at := time.Duration(h * float64(time.Hour))
 		sc.Timeline = append(sc.Timeline,
-			mechanics.Change{At: at + 20*time.Minute, Ramp: 20 * time.Minute, Set: map[string]float64{"c": 26}},
-			mechanics.Change{At: at + 70*time.Minute, Ramp: 20 * time.Minute, Set: map[string]float64{"c": 50}})
+			lungsim.Change{At: at + 20*time.Minute, Ramp: 20 * time.Minute, Set: map[string]float64{"c": 26}},
+			lungsim.Change{At: at + 70*time.Minute, Ramp: 20 * time.Minute, Set: map[string]float64{"c": 50}})
 	}
 	sc.Defaults()
 	if err := sc.Validate(); err != nil {

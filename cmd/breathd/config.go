@@ -14,6 +14,7 @@ import (
 	"breathd/alerts"
 	"breathd/device"
 	"breathd/mechanics"
+	"breathd/mechanics/lungsim"
 	"breathd/stream"
 
 	"go.yaml.in/yaml/v3"
@@ -65,7 +66,7 @@ type simSource struct {
 	Speed    float64 `yaml:"speed"`    // 1 real time (default), N times faster
 	Seed     uint64  `yaml:"seed"`     // overrides the scenario's seed when set
 
-	scenario mechanics.Scenario
+	scenario lungsim.Scenario
 }
 
 type formatConfig struct {

@@ -6,7 +6,7 @@ import (
 	"strings"
 	"testing"
 
-	"breathd/mechanics"
+	"breathd/mechanics/lungsim"
 )
 
 // FuzzConfig: no configuration text panics the loader, and every error
@@ -33,7 +33,7 @@ func FuzzScenario(f *testing.F) {
 		f.Add(string(b))
 	}
 	f.Fuzz(func(t *testing.T, text string) {
-		var sc mechanics.Scenario
+		var sc lungsim.Scenario
 		if _, err := decodeStrict("fuzz.yaml", []byte(text), &sc); err != nil {
 			return
 		}
@@ -42,8 +42,8 @@ func FuzzScenario(f *testing.F) {
 			return
 		}
 		sc.Duration = min(sc.Duration, 20e9) // 20 s is enough to exercise it
-		sim := mechanics.NewSim(sc, nil)
-		var s mechanics.SimSample
+		sim := lungsim.NewSim(sc, nil)
+		var s lungsim.SimSample
 		for sim.Next(&s) {
 		}
 	})

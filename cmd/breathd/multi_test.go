@@ -13,7 +13,7 @@ import (
 	"time"
 
 	"breathd/device"
-	"breathd/mechanics"
+	"breathd/mechanics/lungsim"
 
 	"github.com/creack/pty"
 	mqtt "github.com/eclipse/paho.mqtt.golang"
@@ -29,8 +29,8 @@ func ventilatorOnPty(t *testing.T, garbage bool) (string, *os.File) {
 	}
 	name := slave.Name()
 	slave.Close()
-	sc := mechanics.Scenario{Seed: 5, RateHz: 100, Duration: time.Hour,
-		Settings: mechanics.Settings{Mode: mechanics.ModeVC, R: 10, C: 50, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3}}
+	sc := lungsim.Scenario{Seed: 5, RateHz: 100, Duration: time.Hour,
+		Settings: lungsim.Settings{Mode: lungsim.ModeVC, R: 10, C: 50, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3}}
 	sc.Defaults()
 	src := device.NewSim(sc, device.SimFormat{Header: true}, 10, nil)
 	go func() {

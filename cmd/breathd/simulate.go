@@ -16,7 +16,7 @@ import (
 	"time"
 
 	"breathd/device"
-	"breathd/mechanics"
+	"breathd/mechanics/lungsim"
 	"breathd/stream"
 
 	"github.com/creack/pty"
@@ -24,8 +24,8 @@ import (
 )
 
 // loadScenario reads a scenario file (configs/scenarios/README.md).
-func loadScenario(path string) (mechanics.Scenario, error) {
-	var sc mechanics.Scenario
+func loadScenario(path string) (lungsim.Scenario, error) {
+	var sc lungsim.Scenario
 	data, err := os.ReadFile(path)
 	if err != nil {
 		if errors.Is(err, os.ErrNotExist) {
@@ -99,7 +99,7 @@ func (f *simFlags) register(fs *flag.FlagSet) {
 
 // apply sets the scenario fields whose flags were given (all of them when
 // there is no scenario file).
-func (f *simFlags) apply(fs *flag.FlagSet, sc *mechanics.Scenario, all bool) {
+func (f *simFlags) apply(fs *flag.FlagSet, sc *lungsim.Scenario, all bool) {
 	set := map[string]bool{}
 	fs.Visit(func(fl *flag.Flag) { set[fl.Name] = true })
 	use := func(name string) bool { return all || set[name] }
@@ -130,7 +130,7 @@ func (f *simFlags) apply(fs *flag.FlagSet, sc *mechanics.Scenario, all bool) {
 	if st.EffortRate > 0 && st.EffortTime == 0 {
 		st.EffortTime = 0.8
 	}
-	if all && st.Mode != mechanics.ModeVC {
+	if all && st.Mode != lungsim.ModeVC {
 		st.Pause = 0
 	}
 }
@@ -158,7 +158,7 @@ func cmdSimulate(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	if fs.NArg() > 0 {
 		return usagef("simulate takes no arguments besides flags; got %q", fs.Args())
 	}
-	var sc mechanics.Scenario
+	var sc lungsim.Scenario
 	if *scenario != "" {
 		var err error
 		if sc, err = loadScenario(*scenario); err != nil {
@@ -191,7 +191,7 @@ func cmdSimulate(ctx context.Context, args []string, stdout, stderr io.Writer) e
 		return err
 	}
 	breaths := 0
-	src := device.NewSim(sc, simFmt, sp, func(tr mechanics.Truth) {
+	src := device.NewSim(sc, simFmt, sp, func(tr lungsim.Truth) {
 		breaths++
 		if tw != nil {
 			writeTruth(tw, tr)
@@ -324,7 +324,7 @@ func truthWriter(path string) (*bufio.Writer, func() error, error) {
 	return w, func() error { return errors.Join(w.Flush(), f.Close()) }, nil
 }
 
-func writeTruth(w *bufio.Writer, tr mechanics.Truth) {
+func writeTruth(w *bufio.Writer, tr lungsim.Truth) {
 	num := func(v float64, d int) string {
 		if math.IsNaN(v) {
 			return ""

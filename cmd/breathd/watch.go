@@ -14,9 +14,8 @@ import (
 	"sync"
 	"time"
 
-	"github.com/mattn/go-isatty"
-
 	paho "github.com/eclipse/paho.mqtt.golang"
+	"github.com/mattn/go-isatty"
 )
 
 // deviceView is what watch knows of one device.

@@ -1,4 +1,4 @@
-package mechanics
+package lungsim
 
 import (
 	"math"
@@ -28,6 +28,8 @@ func at(ss []SimSample, t float64) SimSample {
 	dt := ss[1].T - ss[0].T
 	return ss[min(len(ss)-1, max(0, int(math.Round((t-ss[0].T)/dt))))]
 }
+
+func with(s Settings, f func(*Settings)) Settings { f(&s); return s }
 
 // longPause is volume control with a 3 s end-inspiratory pause, for the
 // lung's relaxation.

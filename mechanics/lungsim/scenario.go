@@ -1,4 +1,4 @@
-package mechanics
+package lungsim
 
 import (
 	"errors"
@@ -7,6 +7,8 @@ import (
 	"sort"
 	"strings"
 	"time"
+
+	"breathd/mechanics"
 )
 
 // Ventilation modes of the simulator.
@@ -181,23 +183,17 @@ type Change struct {
 	Disconnect time.Duration      `yaml:"disconnect"`
 }
 
-// Patient is what predicted body weight needs.
-type Patient struct {
-	Sex      string  `yaml:"sex"`       // male or female
-	HeightCm float64 `yaml:"height_cm"` // cm
-}
-
 // Scenario is an invented simulated patient and what happens to them.
 type Scenario struct {
-	Name        string        `yaml:"name"`
-	Description string        `yaml:"description"`
-	Seed        uint64        `yaml:"seed"`
-	RateHz      float64       `yaml:"rate_hz"`  // samples per second; default 100
-	Duration    time.Duration `yaml:"duration"` // default 10 min
-	Patient     Patient       `yaml:"patient"`
-	Settings    Settings      `yaml:"settings"`
-	Sensor      Sensor        `yaml:"sensor"`
-	Timeline    []Change      `yaml:"timeline"`
+	Name        string            `yaml:"name"`
+	Description string            `yaml:"description"`
+	Seed        uint64            `yaml:"seed"`
+	RateHz      float64           `yaml:"rate_hz"`  // samples per second; default 100
+	Duration    time.Duration     `yaml:"duration"` // default 10 min
+	Patient     mechanics.Patient `yaml:"patient"`
+	Settings    Settings          `yaml:"settings"`
+	Sensor      Sensor            `yaml:"sensor"`
+	Timeline    []Change          `yaml:"timeline"`
 }
 
 // Defaults fills unset fields: 100 Hz, 10 minutes, 2 printed digits, a
@@ -243,7 +239,7 @@ func (sc *Scenario) Validate() error {
 		}
 	}
 	if sc.Patient.Sex != "" || sc.Patient.HeightCm != 0 {
-		if _, err := PredictedBodyWeight(sc.Patient.Sex, sc.Patient.HeightCm); err != nil {
+		if _, err := mechanics.PredictedBodyWeight(sc.Patient.Sex, sc.Patient.HeightCm); err != nil {
 			return fmt.Errorf("patient: %w", err)
 		}
 	}

@@ -1,4 +1,11 @@
-package mechanics
+// Package lungsim is a lung and a ventilator that play a patient: the
+// single-compartment equation of motion (integrated exactly) or lungs and
+// sensors that are not that simple, on volume control, pressure control or
+// pressure support, with effort, leak, noise, drift and a timeline of
+// changes. It gives every breath's truth, for the simulator device, the
+// demo and the tests. breathd's analysis (package mechanics) never
+// imports it.
+package lungsim
 
 import (
 	"math"

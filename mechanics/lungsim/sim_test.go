@@ -1,9 +1,11 @@
-package mechanics
+package lungsim
 
 import (
 	"math"
 	"testing"
 	"time"
+
+	"breathd/mechanics"
 )
 
 func passive(mode string) Scenario {
@@ -225,7 +227,7 @@ func TestScenarioValidate(t *testing.T) {
 		func(s *Scenario) { s.Timeline = []Change{{At: time.Minute, Set: map[string]float64{"compliance": 3}}} },
 		func(s *Scenario) { s.Timeline = []Change{{At: time.Minute, Set: map[string]float64{"c": -3}}} },
 		func(s *Scenario) { s.Timeline = []Change{{At: 2 * time.Minute}, {At: time.Minute}} },
-		func(s *Scenario) { s.Patient = Patient{Sex: "x", HeightCm: 170} },
+		func(s *Scenario) { s.Patient = mechanics.Patient{Sex: "x", HeightCm: 170} },
 	}
 	for i, f := range bad {
 		sc := passive(ModeVC)
