@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"breathd/stream"
+	"breathd/stream/broker"
 
 	paho "github.com/eclipse/paho.mqtt.golang"
 	"github.com/rs/zerolog"
@@ -110,7 +111,7 @@ type mqttSession struct {
 	cfg      mqttConfig
 	password string
 	url      string
-	broker   *stream.Broker
+	broker   *broker.Broker
 	stateDir string
 	log      zerolog.Logger
 }
@@ -130,7 +131,7 @@ func startMQTT(c mqttConfig, e embeddedConfig, stateDir string, log zerolog.Logg
 	}
 	s := &mqttSession{cfg: c, password: pw, url: c.Broker, stateDir: stateDir, log: log}
 	if s.url == "" {
-		b, err := stream.StartBroker(stream.BrokerConfig{Listen: e.Listen, PasswordFile: e.PasswordFile}, log)
+		b, err := broker.Start(broker.Config{Listen: e.Listen, PasswordFile: e.PasswordFile}, log)
 		if err != nil {
 			return nil, err
 		}

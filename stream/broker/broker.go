@@ -1,4 +1,7 @@
-package stream
+// Package broker is the embedded MQTT broker breathd starts when no broker is
+// configured: mochi-mqtt on loopback, or beyond it only with a password
+// file.
+package broker
 
 import (
 	"bufio"
@@ -11,7 +14,7 @@ import (
 	"sync"
 	"syscall"
 
-	mqtt "github.com/mochi-mqtt/server/v2"
+	mochi "github.com/mochi-mqtt/server/v2"
 	"github.com/mochi-mqtt/server/v2/hooks/auth"
 	"github.com/mochi-mqtt/server/v2/listeners"
 	"github.com/rs/zerolog"
@@ -20,8 +23,8 @@ import (
 // DefaultListen is where the embedded broker listens by default.
 const DefaultListen = "127.0.0.1:1883"
 
-// BrokerConfig configures the embedded MQTT broker.
-type BrokerConfig struct {
+// Config configures the embedded MQTT broker.
+type Config struct {
 	Listen string // host:port; default DefaultListen. Port 0 picks a free one.
 	// PasswordFile holds "user:password" lines ('#' comments). Without it
 	// the broker takes anyone, which is allowed on loopback only.
@@ -33,7 +36,7 @@ var ErrPortBusy = errors.New("port in use")
 
 // Broker is the embedded MQTT broker (mochi-mqtt).
 type Broker struct {
-	srv  *mqtt.Server
+	srv  *mochi.Server
 	addr string
 	once sync.Once
 }
@@ -51,10 +54,10 @@ func IsLoopback(hostport string) bool {
 	return ip != nil && ip.IsLoopback()
 }
 
-// StartBroker starts the embedded broker. It refuses to listen beyond
+// Start starts the embedded broker. It refuses to listen beyond
 // loopback without a password file, and says what to do when the port is
 // taken.
-func StartBroker(cfg BrokerConfig, log zerolog.Logger) (*Broker, error) {
+func Start(cfg Config, log zerolog.Logger) (*Broker, error) {
 	if cfg.Listen == "" {
 		cfg.Listen = DefaultListen
 	}
@@ -69,7 +72,7 @@ func StartBroker(cfg BrokerConfig, log zerolog.Logger) (*Broker, error) {
 		level = zerolog.WarnLevel // client connects are routine
 	}
 	blog := log.With().Str("component", "broker").Logger().Level(level)
-	srv := mqtt.New(&mqtt.Options{InlineClient: false, Logger: slog.New(zerolog.NewSlogHandler(blog))})
+	srv := mochi.New(&mochi.Options{InlineClient: false, Logger: slog.New(zerolog.NewSlogHandler(blog))})
 	srv.Options.Capabilities.MaximumMessageExpiryInterval = 0 // keep retained messages
 	if cfg.PasswordFile != "" {
 		users, err := readPasswordFile(cfg.PasswordFile)
