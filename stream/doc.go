@@ -1,66 +1,15 @@
-// Package stream turns one device's bytes into timed samples and carries them
-// through the per-device loop.
+// Package stream is one device's loop: it reads the device's bytes, decodes
+// them into samples (package lines), finds breaths and computes their
+// mechanics (package mechanics), keeps the rolling window, evaluates the
+// rules (package alerts), and hands every breath and event to the sinks
+// (the publisher of package publish, the CSV writer of package payload).
 //
-// # Sample lines
+// Run drives the loop until the source ends or its context is cancelled;
+// Control acknowledges events and reads the counters from other
+// goroutines; Status is what the loop reports. The loop keeps the order
+// of the samples, never waits on a sink's network, and allocates nothing
+// per sample.
 //
-// A stream is a sequence of lines of ASCII text, each ended by LF or CRLF.
-// Every line is one of:
-//
-//   - a comment: its first non-blank byte is '#'. Comments are skipped, except
-//     the two directives a breathd recording writes (see below);
-//   - a header: the first non-comment line whose fields are not all numbers
-//     and name at least one known column. It names the columns. A line
-//     before it that names none (noise on a port that was opened mid-stream)
-//     is a bad line;
-//   - a data line: one sample, one field per column.
-//
-// Fields are separated by ',' ';' a tab, or runs of spaces. With the default
-// delimiter "auto" the first non-comment line decides, preferring ';' then
-// ',' then tab then spaces. Blank space around a field is ignored.
-//
-// Column names (case does not matter):
-//
-//	t     time since an arbitrary origin      s (default) | ms
-//	paw   airway pressure                     cmH2O (default) | mbar | hPa | kPa
-//	flow  flow, positive into the patient     L/min (default) | L/s | mL/s
-//	vol   volume, optional cross-check        mL (default) | L
-//
-// Other column names are ignored. Without a header the configured column
-// order is used; the default is t,paw,flow. Without a t column the rate
-// (Format.RateHz) is required and the time of a data line is its index over
-// the rate (bad data lines keep their slot in time).
-//
-// Examples, all decoding to the same two samples:
-//
-//	t,paw,flow
-//	0.00,5.1,0.0
-//	0.01,5.9,42.5
-//
-//	# no header: default column order
-//	0.00;5.1;0.0
-//	0.01;5.9;42.5
-//
-//	time_ms  paw   flow      (columns t,paw,flow with --unit t=ms; "time_ms" is not a known name,
-//	0        5.1   0.0        so this line is still a header but names no t column: pass --columns)
-//
-// # Bad lines and gaps
-//
-// A data line is bad, counted by its Cause and skipped, when it is longer than
-// MaxLineBytes, has the wrong number of fields, has a field that is not a
-// number, has a NaN or infinite value, has a value outside the plausible range
-// (paw −30…150 cmH2O, flow ±600 L/min, vol ±10 000 mL), or has a time that is
-// not later than the previous good sample's. A bad line never ends the stream.
-// A time step larger than Format.GapLimit (default 0.5 s) is a gap: the
-// sample after it is marked Gap so that a breath in progress is dropped.
-//
-// # Recording directives
-//
-// A recording made by breathd carries two kinds of comment line of its own:
-//
-//	# breathd format columns=t,paw,flow delimiter=comma unit.paw=cmH2O flow_sign=1
-//	# breathd clock 2026-12-01T08:00:00.000Z
-//
-// A format directive fills every setting the caller left unset, so that a
-// recording replays with no flags. A clock directive gives the wall-clock
-// time at which the next data line was received.
+// Every output of breathd carries Advisory, the notice that it is research
+// software and not a medical device.
 package stream

@@ -7,6 +7,7 @@ import (
 
 	"breathd/alerts"
 	"breathd/mechanics"
+	"breathd/stream/lines"
 )
 
 // PayloadVersion is the "v" of every JSON payload.
@@ -151,9 +152,9 @@ func ActiveJSON(device string, seq int64, active []alerts.Active, at time.Time) 
 // StatusJSON encodes the device's status: online or offline, its counters
 // and the advisory notice.
 func StatusJSON(device string, seq int64, state, reason, version string, st Status, pc Counters, at time.Time) []byte {
-	bad := make(map[string]int64, NumCauses)
+	bad := make(map[string]int64, lines.NumCauses)
 	for i, n := range st.Counts.Bad {
-		bad[Cause(i).String()] = n
+		bad[lines.Cause(i).String()] = n
 	}
 	counters := map[string]any{
 		"samples": st.Counts.Samples, "bad_lines": bad, "gaps": st.Counts.Gaps, "breaths": st.Breaths,

@@ -15,6 +15,7 @@ import (
 	"breathd/alerts"
 	"breathd/device"
 	"breathd/mechanics"
+	"breathd/stream/lines"
 
 	"github.com/rs/zerolog"
 )
@@ -56,7 +57,7 @@ func (s Sinks) Event(ev *alerts.Event, active []alerts.Active) {
 // Config is one device's loop settings.
 type Config struct {
 	Device    string                 // device id, for logs and reports
-	Format    Format                 // how to decode the stream
+	Format    lines.Format           // how to decode the stream
 	Mechanics mechanics.Config       // breath detection and metrics
 	Window    mechanics.WindowConfig // the rolling window
 	Rules     []alerts.Rule          // the rules to evaluate (merged with the defaults by the caller); nil: none
@@ -80,7 +81,7 @@ type Config struct {
 // Status is a snapshot of one device's loop.
 type Status struct {
 	Device    string
-	Counts    Counts
+	Counts    lines.Counts
 	Breaths   int64              // breaths completed
 	Drops     mechanics.Drops    // breaths in progress dropped, by cause
 	Channels  mechanics.Channels // the channels' delay, alignment and noise
@@ -155,7 +156,7 @@ const tickEvery = 1.0 // s
 // cannot be decoded, or a read error, is returned.
 func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
 	l := &loop{cfg: cfg, src: src, start: time.Now(), lastBreathT: math.NaN(), lastT: math.NaN()}
-	dec, err := NewDecoder(snapReader{l}, cfg.Format)
+	dec, err := lines.NewDecoder(snapReader{l}, cfg.Format)
 	if err == nil {
 		// sized for up to 1000 Hz whatever the stream turns out to be
 		l.seg, err = mechanics.NewSegmenter(cfg.Mechanics, 1000)
@@ -229,7 +230,7 @@ func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
 type loop struct {
 	cfg    Config
 	src    io.ReadCloser
-	dec    *Decoder
+	dec    *lines.Decoder
 	seg    *mechanics.Segmenter
 	win    *mechanics.Window
 	pacer  *device.Pacer
@@ -257,7 +258,7 @@ type loop struct {
 	aheadOn bool // set before decoding starts
 
 	mu    sync.Mutex // guards the snapshot
-	snap  Counts
+	snap  lines.Counts
 	snapB int64
 	snapD mechanics.Drops
 	snapC mechanics.Channels
@@ -265,7 +266,7 @@ type loop struct {
 }
 
 func (l *loop) run(ctx context.Context) error {
-	var samples [runBatch]Sample
+	var samples [runBatch]lines.Sample
 	size := len(samples)
 	if l.pacer != nil {
 		size = 1 // the counters then never run ahead of the pacing
@@ -283,7 +284,7 @@ func (l *loop) run(ctx context.Context) error {
 		if err == nil {
 			continue
 		}
-		var le *LineError
+		var le *lines.LineError
 		switch {
 		case errors.As(err, &le):
 			l.badLine(le)
@@ -293,7 +294,7 @@ func (l *loop) run(ctx context.Context) error {
 			return nil
 		}
 		l.snapshot()
-		var fe *FormatError
+		var fe *lines.FormatError
 		if errors.As(err, &fe) {
 			return fmt.Errorf("%s: cannot decode the stream: %w", l.cfg.Device, err)
 		}
@@ -306,7 +307,7 @@ func (l *loop) run(ctx context.Context) error {
 const runBatch = 256
 
 // sample is the analysis of one sample.
-func (l *loop) sample(s *Sample) {
+func (l *loop) sample(s *lines.Sample) {
 	if b := l.seg.Add(s.T, s.Paw, s.Flow, s.Gap); b != nil {
 		l.breath(b)
 	}
@@ -320,9 +321,9 @@ func (l *loop) sample(s *Sample) {
 // the analysis (Config.Ahead), with the decoder's counters after it and
 // the wall-clock anchor in force for all of its samples.
 type batch struct {
-	s      []Sample
-	counts Counts
-	wall   wallAnchor
+	s      []lines.Sample
+	counts lines.Counts
+	wall   lines.Clock
 	err    error
 }
 
@@ -336,7 +337,7 @@ func (l *loop) runAhead(ctx context.Context) error {
 	full := make(chan *batch, 2)
 	free := make(chan *batch, 3)
 	for range 3 {
-		free <- &batch{s: make([]Sample, 0, batchSize)}
+		free <- &batch{s: make([]lines.Sample, 0, batchSize)}
 	}
 	go l.decodeAhead(full, free)
 	var err error
@@ -352,12 +353,12 @@ func (l *loop) runAhead(ctx context.Context) error {
 		}
 		free <- b
 	}
-	var le *LineError
+	var le *lines.LineError
 	switch {
 	case err == nil, errors.Is(err, io.EOF), ctx.Err() != nil, errors.As(err, &le):
 		return nil
 	}
-	var fe *FormatError
+	var fe *lines.FormatError
 	if errors.As(err, &fe) {
 		return fmt.Errorf("%s: cannot decode the stream: %w", l.cfg.Device, err)
 	}
@@ -374,8 +375,8 @@ func (l *loop) decodeAhead(full, free chan *batch) {
 		// A clock directive can only come before the first sample of a
 		// DecodeBatch; a batch is sent before a call that may meet one,
 		// so that its samples share one wall-clock anchor.
-		if len(b.s) > 0 && (len(b.s) == cap(b.s) || !l.dec.plainLineNext()) {
-			b.counts = l.dec.counts
+		if len(b.s) > 0 && (len(b.s) == cap(b.s) || !l.dec.DataLineBuffered()) {
+			b.counts = l.dec.Counts()
 			full <- b
 			b = <-free
 			b.s, b.err = b.s[:0], nil
@@ -383,16 +384,16 @@ func (l *loop) decodeAhead(full, free chan *batch) {
 		k := len(b.s)
 		n, err := l.dec.DecodeBatch(b.s[k:cap(b.s)])
 		if k == 0 {
-			b.wall = l.dec.anchor()
+			b.wall = l.dec.Clock()
 		}
 		b.s = b.s[:k+n]
-		var le *LineError
+		var le *lines.LineError
 		if errors.As(err, &le) {
 			l.badLine(le)
 			continue
 		}
 		if err != nil {
-			b.counts, b.err = l.dec.counts, err
+			b.counts, b.err = l.dec.Counts(), err
 			full <- b
 			return
 		}
@@ -414,24 +415,24 @@ func (l *loop) breath(b *mechanics.Breath) {
 // wall is the wall-clock time of stream time t: from the recording's clock
 // directives when it has them, else now.
 func (l *loop) wall(t float64) time.Time {
-	var a wallAnchor
+	var a lines.Clock
 	if l.ahead != nil {
 		a = l.ahead.wall // decoding ahead: the decoder belongs to its goroutine
 	} else {
-		a = l.dec.anchor()
+		a = l.dec.Clock()
 	}
-	if w, ok := a.at(t); ok {
+	if w, ok := a.At(t); ok {
 		return w
 	}
 	return time.Now()
 }
 
 // counts are the decoder's counters as of the sample being analysed.
-func (l *loop) counts() *Counts {
+func (l *loop) counts() lines.Counts {
 	if l.ahead != nil {
-		return &l.ahead.counts
+		return l.ahead.counts
 	}
-	return &l.dec.counts
+	return l.dec.Counts()
 }
 
 // deliver passes events to the sink; emu is held.
@@ -450,7 +451,7 @@ func (l *loop) deliver(evs []alerts.Event) {
 }
 
 // tick evaluates the technical rules in stream time.
-func (l *loop) tick(s *Sample) {
+func (l *loop) tick(s *lines.Sample) {
 	c := l.counts()
 	l.ticks++
 	l.nextTick = s.T + tickEvery
@@ -533,9 +534,9 @@ func (l *loop) wallTicks(done <-chan struct{}) {
 }
 
 // badLine logs the first bad lines of each cause, then every 1000th.
-func (l *loop) badLine(le *LineError) {
-	c := l.dec.counts.Bad[le.Cause]
-	if le.Cause == CauseBadHeader {
+func (l *loop) badLine(le *lines.LineError) {
+	c := l.dec.Counts().Bad[le.Cause]
+	if le.Cause == lines.CauseBadHeader {
 		l.cfg.Log.Warn().Int64("line", le.Line).Err(l.dec.HeaderError()).
 			Msg("a header line breathd cannot use was skipped: the data is read with the configured columns (check --columns)")
 		return
@@ -562,7 +563,7 @@ func (l *loop) snapshot() {
 	ev := l.nEv
 	l.emu.Unlock()
 	l.mu.Lock()
-	l.snap = *l.counts()
+	l.snap = l.counts()
 	l.snapB, l.snapD, l.snapC, l.snapE = l.seg.Breaths(), l.seg.Drops(), l.seg.Channels(), ev
 	l.mu.Unlock()
 }
@@ -630,11 +631,11 @@ func (st Status) String() string {
 	return b.String()
 }
 
-func badCauses(c *Counts) string {
+func badCauses(c *lines.Counts) string {
 	var parts []string
 	for i, n := range c.Bad {
 		if n > 0 {
-			parts = append(parts, fmt.Sprintf("%s %d", Cause(i), n))
+			parts = append(parts, fmt.Sprintf("%s %d", lines.Cause(i), n))
 		}
 	}
 	sort.Strings(parts)

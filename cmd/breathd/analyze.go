@@ -19,6 +19,7 @@ import (
 	"breathd/device"
 	"breathd/mechanics"
 	"breathd/stream"
+	"breathd/stream/lines"
 
 	"github.com/mattn/go-isatty"
 	"github.com/schollz/progressbar/v3"
@@ -348,11 +349,11 @@ func channelsText(c mechanics.Channels) string {
 	return b.String()
 }
 
-func badCausesOf(c *stream.Counts) string {
+func badCausesOf(c *lines.Counts) string {
 	var parts []string
 	for i, n := range c.Bad {
 		if n > 0 {
-			parts = append(parts, fmt.Sprintf("%s %d", stream.Cause(i), n))
+			parts = append(parts, fmt.Sprintf("%s %d", lines.Cause(i), n))
 		}
 	}
 	return strings.Join(parts, ", ")

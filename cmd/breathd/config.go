@@ -15,7 +15,7 @@ import (
 	"breathd/device"
 	"breathd/mechanics"
 	"breathd/mechanics/lungsim"
-	"breathd/stream"
+	"breathd/stream/lines"
 
 	"go.yaml.in/yaml/v3"
 )
@@ -112,8 +112,8 @@ type recordConfig struct {
 	ClockEvery time.Duration `yaml:"clock_every"`
 }
 
-func (f formatConfig) format() stream.Format {
-	return stream.Format{Columns: f.Columns, Delimiter: f.Delimiter, RateHz: f.RateHz,
+func (f formatConfig) format() lines.Format {
+	return lines.Format{Columns: f.Columns, Delimiter: f.Delimiter, RateHz: f.RateHz,
 		Units: f.Units, FlowSign: f.FlowSign, GapLimit: f.GapLimit}
 }
 

@@ -8,7 +8,7 @@ import (
 	"strings"
 	"time"
 
-	"breathd/stream"
+	"breathd/stream/lines"
 )
 
 // formatFlags are the decoder flags of DESIGN §3, shared by the verbs
@@ -32,7 +32,7 @@ func (u unitFlag) Set(s string) error {
 		return fmt.Errorf("want COLUMN=UNIT, e.g. paw=mbar")
 	}
 	col = strings.ToLower(strings.TrimSpace(col))
-	if _, err := stream.UnitFactor(col, strings.TrimSpace(unit)); err != nil {
+	if _, err := lines.UnitFactor(col, strings.TrimSpace(unit)); err != nil {
 		return err
 	}
 	u[col] = strings.TrimSpace(unit)
@@ -49,8 +49,8 @@ func (f *formatFlags) register(fs *flag.FlagSet) {
 	fs.DurationVar(&f.gapLimit, "gap-limit", 0, "largest time step that is not a gap (default 500ms)")
 }
 
-func (f *formatFlags) format() (stream.Format, error) {
-	out := stream.Format{Delimiter: f.delimiter, RateHz: f.rateHz, Units: f.units, FlowSign: f.flowSign, GapLimit: f.gapLimit}
+func (f *formatFlags) format() (lines.Format, error) {
+	out := lines.Format{Delimiter: f.delimiter, RateHz: f.rateHz, Units: f.units, FlowSign: f.flowSign, GapLimit: f.gapLimit}
 	if f.columns != "" {
 		for _, c := range strings.Split(f.columns, ",") {
 			out.Columns = append(out.Columns, strings.ToLower(strings.TrimSpace(c)))

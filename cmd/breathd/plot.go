@@ -13,7 +13,7 @@ import (
 	"breathd/alerts"
 	"breathd/device"
 	"breathd/mechanics"
-	"breathd/stream"
+	"breathd/stream/lines"
 
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/plotter"
@@ -56,18 +56,18 @@ type strip struct {
 
 // readStrip decodes the samples in [from, from+span) of the recording
 // again, integrating volume from each detected breath start.
-func readStrip(path string, f stream.Format, from, span float64, breaths []mechanics.Breath) (*strip, error) {
+func readStrip(path string, f lines.Format, from, span float64, breaths []mechanics.Breath) (*strip, error) {
 	src, err := device.OpenFile(path, 0)
 	if err != nil {
 		return nil, err
 	}
 	defer src.Close()
-	dec, err := stream.NewDecoder(src, f)
+	dec, err := lines.NewDecoder(src, f)
 	if err != nil {
 		return nil, err
 	}
 	st := &strip{}
-	var s stream.Sample
+	var s lines.Sample
 	v, prevT, prevF := 0.0, math.NaN(), 0.0
 	bi := 0
 	for {
@@ -75,7 +75,7 @@ func readStrip(path string, f stream.Format, from, span float64, breaths []mecha
 		if errors.Is(err, io.EOF) || (err == nil && s.T >= from+span) {
 			break
 		}
-		var le *stream.LineError
+		var le *lines.LineError
 		if errors.As(err, &le) {
 			continue
 		}
@@ -158,7 +158,7 @@ func addMarks(p *plot.Plot, pts plotter.XYs, c color.Color, shape draw.GlyphDraw
 
 // writePlot draws the strip and the trend panels and writes a PNG or SVG
 // by the file's extension.
-func writePlot(out, path string, f stream.Format, from, span float64, d *plotData) error {
+func writePlot(out, path string, f lines.Format, from, span float64, d *plotData) error {
 	ext := strings.ToLower(filepath.Ext(out))
 	if ext != ".png" && ext != ".svg" {
 		return usagef("--plot %s: the picture is .png or .svg", out)

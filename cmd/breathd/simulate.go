@@ -17,7 +17,7 @@ import (
 
 	"breathd/device"
 	"breathd/mechanics/lungsim"
-	"breathd/stream"
+	"breathd/stream/lines"
 
 	"github.com/creack/pty"
 	"golang.org/x/sys/unix"
@@ -222,7 +222,7 @@ func cmdSimulate(ctx context.Context, args []string, stdout, stderr io.Writer) e
 // simFormat builds the printed format, and the directive that tells
 // breathd how to read it.
 func simFormat(delim string, units unitFlag, noTime, header bool, flowSign, rate float64, directive bool) (device.SimFormat, error) {
-	f := stream.Format{Delimiter: delim, Units: units, FlowSign: flowSign}
+	f := lines.Format{Delimiter: delim, Units: units, FlowSign: flowSign}
 	if noTime {
 		f.Columns, f.RateHz = []string{"paw", "flow"}, rate
 	}
@@ -236,7 +236,7 @@ func simFormat(delim string, units unitFlag, noTime, header bool, flowSign, rate
 	sf := device.SimFormat{Delimiter: d, Header: header, NoTime: noTime}
 	scale := func(col string) float64 {
 		if u, ok := units[col]; ok {
-			factor, _ := stream.UnitFactor(col, u)
+			factor, _ := lines.UnitFactor(col, u)
 			return 1 / factor
 		}
 		return 1

@@ -13,6 +13,7 @@ import (
 	"breathd/device"
 	"breathd/mechanics"
 	"breathd/stream"
+	"breathd/stream/lines"
 
 	"github.com/rs/zerolog"
 )
@@ -21,7 +22,7 @@ import (
 type deviceRun struct {
 	id        string
 	src       io.ReadCloser
-	format    stream.Format
+	format    lines.Format
 	mechanics mechanics.Config
 	rules     []alerts.Rule
 	live      bool

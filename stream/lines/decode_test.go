@@ -1,4 +1,4 @@
-package stream
+package lines
 
 import (
 	"bufio"
@@ -476,7 +476,7 @@ func BenchmarkDecode(b *testing.B) {
 	data := dayStream()
 	r := bytes.NewReader(data)
 	d, _ := NewDecoder(r, Format{})
-	var s [batchSize]Sample
+	var s [4096]Sample
 	b.SetBytes(int64(len(data)) / (24 * 3600 * 100))
 	b.ReportAllocs()
 	b.ResetTimer()

@@ -1,4 +1,4 @@
-package stream
+package lines
 
 import (
 	"bytes"
@@ -242,31 +242,31 @@ func kindName(k colKind, i int) string {
 	return fmt.Sprintf("x%d", i+1)
 }
 
-// wallAnchor is the mapping from stream time to wall-clock time in force.
-type wallAnchor struct {
+// Clock maps stream time to wall-clock time, as the clock directives of a
+// recording set it. The zero Clock knows no wall-clock time.
+type Clock struct {
 	ok   bool
 	wall time.Time
 	t    float64
 }
 
-func (d *Decoder) anchor() wallAnchor { return wallAnchor{d.hasWall, d.wall, d.wallT} }
+// Clock returns the mapping in force now. A caller that decodes ahead of
+// its analysis keeps the Clock of each batch, since the next directive
+// changes the decoder's.
+func (d *Decoder) Clock() Clock { return Clock{d.hasWall, d.wall, d.wallT} }
 
-// at is the wall-clock time of stream time t under the anchor.
-func (a wallAnchor) at(t float64) (time.Time, bool) {
-	if !a.ok {
+// At is the wall-clock time of stream time t, known once a clock directive
+// was followed by a sample.
+func (c Clock) At(t float64) (time.Time, bool) {
+	if !c.ok {
 		return time.Time{}, false
 	}
-	return a.wall.Add(time.Duration((t - a.t) * float64(time.Second))), true
+	return c.wall.Add(time.Duration((t - c.t) * float64(time.Second))), true
 }
 
 // Wall returns the wall-clock time of stream time t, known once a clock
 // directive was followed by a sample.
-func (d *Decoder) Wall(t float64) (time.Time, bool) {
-	if !d.hasWall {
-		return time.Time{}, false
-	}
-	return d.wall.Add(time.Duration((t - d.wallT) * float64(time.Second))), true
-}
+func (d *Decoder) Wall(t float64) (time.Time, bool) { return d.Clock().At(t) }
 
 // Decode stores the next good sample in s. A bad line returns a
 // *LineError (skip it and call Decode again); a stream that cannot be

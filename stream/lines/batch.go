@@ -1,4 +1,4 @@
-package stream
+package lines
 
 import (
 	"bytes"
@@ -20,7 +20,7 @@ func (d *Decoder) DecodeBatch(dst []Sample) (int, error) {
 		if n += d.decodeFast(dst[n:]); n == len(dst) {
 			break
 		}
-		if n > 0 && !d.plainLineNext() {
+		if n > 0 && !d.DataLineBuffered() {
 			break
 		}
 		if err := d.Decode(&dst[n]); err != nil {
@@ -31,9 +31,12 @@ func (d *Decoder) DecodeBatch(dst []Sample) (int, error) {
 	return n, nil
 }
 
-// plainLineNext reports whether a whole line that is neither blank nor a
-// comment is buffered: Decode takes such a line without reading.
-func (d *Decoder) plainLineNext() bool {
+// DataLineBuffered reports whether the next line is buffered whole and is
+// neither blank nor a comment: Decode and DecodeBatch then take it without
+// reading, and no directive can come before it. A caller that decodes
+// ahead ends its batch when this is false, so that one Clock holds for all
+// of a batch's samples.
+func (d *Decoder) DataLineBuffered() bool {
 	b := d.buf[d.start:d.end]
 	i := bytes.IndexByte(b, '\n')
 	if i < 0 {
