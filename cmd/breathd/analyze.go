@@ -20,6 +20,7 @@ import (
 	"breathd/mechanics"
 	"breathd/stream"
 	"breathd/stream/lines"
+	"breathd/stream/payload"
 
 	"github.com/mattn/go-isatty"
 	"github.com/schollz/progressbar/v3"
@@ -65,12 +66,12 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	sinks := stream.Sinks{sum}
 	var outs outputs
 	defer outs.closeAll()
-	var csv *stream.CSVWriter
+	var csv *payload.CSVWriter
 	if w, err := outs.open("--csv", *csvPath, stdout); err != nil {
 		src.Close()
 		return err
 	} else if w != nil {
-		csv = stream.NewCSVWriter(w)
+		csv = payload.NewCSVWriter(w)
 		sinks = append(sinks, csv)
 	}
 	if w, err := outs.open("--events", *eventsPath, stdout); err != nil {

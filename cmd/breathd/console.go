@@ -9,7 +9,7 @@ import (
 
 	"breathd/alerts"
 	"breathd/mechanics"
-	"breathd/stream"
+	"breathd/stream/payload"
 )
 
 // console prints one row per breath and, every trendEvery breaths, the
@@ -100,6 +100,6 @@ func (e *eventLines) Breath(string, *mechanics.Breath, *mechanics.Window) {}
 
 func (e *eventLines) Event(ev *alerts.Event, _ []alerts.Active) {
 	if e.err == nil {
-		_, e.err = e.w.Write(append(stream.EventJSON(ev), '\n'))
+		_, e.err = e.w.Write(append(payload.Event(ev), '\n'))
 	}
 }

@@ -13,6 +13,7 @@ import (
 
 	"breathd/stream"
 	"breathd/stream/broker"
+	"breathd/stream/publish"
 
 	paho "github.com/eclipse/paho.mqtt.golang"
 	"github.com/rs/zerolog"
@@ -148,7 +149,7 @@ func portOf(a string) string {
 }
 
 // publisher makes the publisher of one device.
-func (s *mqttSession) publisher(dev string, ctl *stream.Control) (*stream.Publisher, error) {
+func (s *mqttSession) publisher(dev string, ctl *stream.Control) (*publish.Publisher, error) {
 	dir := ""
 	if s.stateDir != "" {
 		dir = filepath.Join(s.stateDir, "queue", dev)
@@ -157,7 +158,7 @@ func (s *mqttSession) publisher(dev string, ctl *stream.Control) (*stream.Publis
 	if s.cfg.ClientID != "" {
 		clientID = s.cfg.ClientID + "-" + dev
 	}
-	p, err := stream.NewPublisher(stream.PublishConfig{Broker: s.url, Root: s.cfg.Root, Device: dev, ClientID: clientID,
+	p, err := publish.New(publish.Config{Broker: s.url, Root: s.cfg.Root, Device: dev, ClientID: clientID,
 		Username: s.cfg.Username, Password: s.password, CAFile: s.cfg.CAFile, CertFile: s.cfg.CertFile, KeyFile: s.cfg.KeyFile,
 		StateDir: dir, BreathQoS: byte(s.cfg.BreathQoS), StatusEvery: s.cfg.StatusEvery, Version: versionString(),
 		Status: ctl.Status, Log: s.log.With().Str("device", dev).Logger()})
@@ -179,7 +180,7 @@ func (s *mqttSession) close() {
 // when breathd stops.
 const drainDeadline = 5 * time.Second
 
-func closePublisher(p *stream.Publisher, log zerolog.Logger) {
+func closePublisher(p *publish.Publisher, log zerolog.Logger) {
 	ctx, cancel := context.WithTimeout(context.Background(), drainDeadline)
 	defer cancel()
 	if err := p.Close(ctx); err != nil {

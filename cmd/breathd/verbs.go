@@ -14,6 +14,7 @@ import (
 	"breathd/mechanics"
 	"breathd/stream"
 	"breathd/stream/lines"
+	"breathd/stream/publish"
 
 	"github.com/rs/zerolog"
 )
@@ -224,7 +225,7 @@ func runDevices(ctx context.Context, runs []deviceRun, every time.Duration, stdo
 			dlog := log.With().Str("device", r.id).Logger()
 			ctl := &stream.Control{}
 			sinks := stream.Sinks{con}
-			var pub *stream.Publisher
+			var pub *publish.Publisher
 			if sess != nil {
 				var err error
 				if pub, err = sess.publisher(r.id, ctl); err != nil {

@@ -1,4 +1,4 @@
-package stream
+package payload
 
 import (
 	"bufio"
@@ -7,6 +7,7 @@ import (
 	"strconv"
 
 	"breathd/mechanics"
+	"breathd/stream"
 )
 
 // csvDecimals is how many decimals each field of mechanics.Fields is
@@ -27,6 +28,9 @@ type CSVWriter struct {
 	vals []float64
 	dec  []int
 }
+
+// A CSVWriter is a sink of the device loop.
+var _ stream.Sink = (*CSVWriter)(nil)
 
 // NewCSVWriter writes the header to w.
 func NewCSVWriter(w io.Writer) *CSVWriter {

@@ -1,4 +1,4 @@
-package stream
+package publish
 
 import (
 	"bufio"

@@ -1,4 +1,4 @@
-package stream
+package publish
 
 import (
 	"context"
@@ -13,6 +13,7 @@ import (
 	"breathd/device"
 	"breathd/mechanics"
 	"breathd/mechanics/lungsim"
+	"breathd/stream"
 
 	mqtt "github.com/eclipse/paho.mqtt.golang"
 	"github.com/rs/zerolog"
@@ -59,8 +60,8 @@ func TestSoak(t *testing.T) {
 	sub.Connect().Wait()
 	sub.Subscribe("breathd/soak/event", 1, func(mqtt.Client, mqtt.Message) { events.Add(1) }).Wait()
 	sub.Subscribe("breathd/soak/breath", 0, func(mqtt.Client, mqtt.Message) { breaths.Add(1) }).Wait()
-	ctl := &Control{}
-	pub, err := NewPublisher(PublishConfig{Broker: b.URL(), Device: "soak", StateDir: t.TempDir(), Status: ctl.Status, Log: zerolog.Nop()})
+	ctl := &stream.Control{}
+	pub, err := New(Config{Broker: b.URL(), Device: "soak", StateDir: t.TempDir(), Status: ctl.Status, Log: zerolog.Nop()})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -80,7 +81,7 @@ func TestSoak(t *testing.T) {
 	}
 	probe := &heapProbe{at: []float64{3600, hours*3600 - 10}}
 	src := device.NewSim(sc, device.SimFormat{Header: true}, 0, nil)
-	st, err := Run(context.Background(), src, Config{Device: "soak", Rules: alerts.Defaults(), Sink: Sinks{pub, probe}, Control: ctl})
+	st, err := stream.Run(context.Background(), src, stream.Config{Device: "soak", Rules: alerts.Defaults(), Sink: stream.Sinks{pub, probe}, Control: ctl})
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -1,4 +1,8 @@
-package stream
+// Package publish sends one device's breaths, trends, events, active rules
+// and status to an MQTT broker (paho), with the events and the active set
+// kept in a durable queue on disk until the broker has them; it takes
+// acknowledgements on the device's ack topic and validates topic parts.
+package publish
 
 import (
 	"context"
@@ -17,14 +21,16 @@ import (
 
 	"breathd/alerts"
 	"breathd/mechanics"
+	"breathd/stream"
+	"breathd/stream/payload"
 
 	mqtt "github.com/eclipse/paho.mqtt.golang"
 	"github.com/eclipse/paho.mqtt.golang/packets"
 	"github.com/rs/zerolog"
 )
 
-// PublishConfig configures one device's MQTT publisher.
-type PublishConfig struct {
+// Config configures one device's MQTT publisher.
+type Config struct {
 	Broker   string // mqtt://host:port or mqtts://host:port
 	Root     string // topic root; default "breathd"
 	Device   string // device id, validated
@@ -40,7 +46,7 @@ type PublishConfig struct {
 	StatusEvery time.Duration // periodic status; default 10 s
 	Version     string        // breathd's version, in the status payload
 	// Status returns the device's counters for the status payload.
-	Status func() Status
+	Status func() stream.Status
 	Log    zerolog.Logger
 }
 
@@ -78,7 +84,7 @@ type record struct {
 // broker is away or the queue is full they are dropped and counted. It is
 // a Sink and an EventSink.
 type Publisher struct {
-	cfg    PublishConfig
+	cfg    Config
 	client mqtt.Client
 	sp     *spool
 	topics struct{ breath, trend, event, active, status, ack string }
@@ -101,10 +107,16 @@ type Publisher struct {
 	lastActive atomic.Pointer[[]byte]
 }
 
-// NewPublisher checks the configuration and the state directory and
+// A Publisher is a sink of the device loop, for breaths and for events.
+var (
+	_ stream.Sink      = (*Publisher)(nil)
+	_ stream.EventSink = (*Publisher)(nil)
+)
+
+// New checks the configuration and the state directory and
 // connects in the background. Wrong credentials are an error at once; a
 // broker that cannot be reached yet is retried, with the events queued.
-func NewPublisher(cfg PublishConfig) (*Publisher, error) {
+func New(cfg Config) (*Publisher, error) {
 	if cfg.Root == "" {
 		cfg.Root = "breathd"
 	}
@@ -194,7 +206,7 @@ func redact(raw string) string {
 
 // brokerAddress turns mqtt:// and mqtts:// into paho's address and TLS
 // settings.
-func brokerAddress(cfg PublishConfig) (string, *tls.Config, error) {
+func brokerAddress(cfg Config) (string, *tls.Config, error) {
 	u, err := url.Parse(cfg.Broker)
 	if err != nil || u.Host == "" {
 		return "", nil, fmt.Errorf("broker %q: want mqtt://host:port or mqtts://host:port", redact(cfg.Broker))
@@ -337,8 +349,8 @@ func (p *Publisher) Breath(_ string, b *mechanics.Breath, w *mechanics.Window) {
 		return
 	}
 	at := time.Now()
-	p.offer(record{topic: p.topics.breath, qos: p.cfg.BreathQoS, payload: BreathJSON(p.cfg.Device, b, at)})
-	p.offer(record{topic: p.topics.trend, retain: true, payload: TrendJSON(p.cfg.Device, b.Seq, w.Trend(), at)})
+	p.offer(record{topic: p.topics.breath, qos: p.cfg.BreathQoS, payload: payload.Breath(p.cfg.Device, b, at)})
+	p.offer(record{topic: p.topics.trend, retain: true, payload: payload.Trend(p.cfg.Device, b.Seq, w.Trend(), at)})
 }
 
 func (p *Publisher) offer(r record) {
@@ -351,10 +363,10 @@ func (p *Publisher) offer(r record) {
 
 // Event queues the event and the new set of active rules durably.
 func (p *Publisher) Event(ev *alerts.Event, active []alerts.Active) {
-	if err := p.sp.push(p.topics.event, EventJSON(ev)); err != nil {
+	if err := p.sp.push(p.topics.event, payload.Event(ev)); err != nil {
 		p.cfg.Log.Error().Err(err).Str("event", ev.ID).Msg("could not queue the event on disk")
 	}
-	payload := ActiveJSON(p.cfg.Device, p.activeSeq.Add(1), active, time.Now())
+	payload := payload.Active(p.cfg.Device, p.activeSeq.Add(1), active, time.Now())
 	p.lastActive.Store(&payload)
 	if err := p.sp.setActive(payload); err != nil {
 		p.cfg.Log.Error().Err(err).Msg("could not keep the active rules on disk")
@@ -488,22 +500,17 @@ out:
 	return err
 }
 
-// Counters are the publisher's own counts, for the status payload.
-type Counters struct {
-	QueueDepth, Dropped, Sent, Reconnects, Acks, AcksRefused, Unqueued int64
-}
-
 // Counters returns the publisher's counts now.
-func (p *Publisher) Counters() Counters {
+func (p *Publisher) Counters() payload.Counters {
 	unq, _ := p.sp.counts()
-	return Counters{QueueDepth: int64(p.sp.depth() + len(p.q0)), Dropped: p.dropped.Load(), Sent: p.sent.Load(),
+	return payload.Counters{QueueDepth: int64(p.sp.depth() + len(p.q0)), Dropped: p.dropped.Load(), Sent: p.sent.Load(),
 		Reconnects: p.reconnects.Load(), Acks: p.acks.Load(), AcksRefused: p.rejected.Load(), Unqueued: unq}
 }
 
 func (p *Publisher) statusPayload(state, reason string) []byte {
-	var st Status
+	var st stream.Status
 	if p.cfg.Status != nil {
 		st = p.cfg.Status()
 	}
-	return StatusJSON(p.cfg.Device, p.statusSeq.Add(1), state, reason, p.cfg.Version, st, p.Counters(), time.Now())
+	return payload.Status(p.cfg.Device, p.statusSeq.Add(1), state, reason, p.cfg.Version, st, p.Counters(), time.Now())
 }

@@ -1,4 +1,10 @@
-package stream
+// Package payload is the output contract: the JSON payloads breathd
+// publishes (breath, trend, event, active, status), the CSV of breaths
+// that analyze writes, and the counters they print. Every payload is one
+// JSON object carrying "v" (Version), the device, and "at" (RFC 3339, UTC);
+// a value that was not computed is null. The encoders are pure: the same
+// inputs give the same bytes, which the golden files in testdata hold.
+package payload
 
 import (
 	"encoding/json"
@@ -7,11 +13,12 @@ import (
 
 	"breathd/alerts"
 	"breathd/mechanics"
+	"breathd/stream"
 	"breathd/stream/lines"
 )
 
-// PayloadVersion is the "v" of every JSON payload.
-const PayloadVersion = 1
+// Version is the "v" of every JSON payload.
+const Version = 1
 
 // num is a number that encodes NaN and ±Inf as null.
 type num float64
@@ -45,9 +52,9 @@ type eventPayload struct {
 	At         string `json:"at"`
 }
 
-// EventJSON encodes an event as its JSON payload (one line, no newline).
-func EventJSON(ev *alerts.Event) []byte {
-	p := eventPayload{V: PayloadVersion, ID: ev.ID, Seq: ev.Seq, Device: ev.Device, Rule: ev.Rule,
+// Event encodes an event as its JSON payload (one line, no newline).
+func Event(ev *alerts.Event) []byte {
+	p := eventPayload{V: Version, ID: ev.ID, Seq: ev.Seq, Device: ev.Device, Rule: ev.Rule,
 		Transition: ev.Transition, Level: ev.Level, Field: ev.Field, Value: num(ev.Value),
 		Threshold: num(ev.Threshold), Low: num(ev.Low), High: num(ev.High), Latching: ev.Latching,
 		T: num(ev.T), At: ev.At.UTC().Format(time.RFC3339Nano)}
@@ -55,14 +62,14 @@ func EventJSON(ev *alerts.Event) []byte {
 	return b
 }
 
-// BreathJSON encodes a breath record: "v", device, "at", and the fields of
+// Breath encodes a breath record: "v", device, "at", and the fields of
 // mechanics.Fields under their names (null when not computed), seq and
 // flags.
-func BreathJSON(device string, b *mechanics.Breath, at time.Time) []byte {
+func Breath(device string, b *mechanics.Breath, at time.Time) []byte {
 	var vals [40]float64
 	v := b.Values(vals[:0])
 	m := make(map[string]any, len(v)+5)
-	m["v"], m["device"], m["seq"], m["at"] = PayloadVersion, device, b.Seq, at.UTC().Format(time.RFC3339Nano)
+	m["v"], m["device"], m["seq"], m["at"] = Version, device, b.Seq, at.UTC().Format(time.RFC3339Nano)
 	for i, f := range mechanics.Fields {
 		m[f] = num(v[i])
 	}
@@ -92,8 +99,8 @@ type risePayload struct {
 	BaselineBreaths int    `json:"baseline_breaths"`
 }
 
-// TrendJSON encodes the rolling window summary after breath seq.
-func TrendJSON(device string, seq int64, tr *mechanics.Trend, at time.Time) []byte {
+// Trend encodes the rolling window summary after breath seq.
+func Trend(device string, seq int64, tr *mechanics.Trend, at time.Time) []byte {
 	fields := make(map[string]statPayload, len(mechanics.Fields))
 	for i, f := range mechanics.Fields {
 		s := tr.StatAt(i)
@@ -114,7 +121,7 @@ func TrendJSON(device string, seq int64, tr *mechanics.Trend, at time.Time) []by
 		ComplianceChange num                    `json:"compliance_change"`
 		NetFlow          num                    `json:"net_flow"`
 		Rise             risePayload            `json:"rise"`
-	}{PayloadVersion, device, seq, at.UTC().Format(time.RFC3339Nano), num(tr.At), tr.N, num(tr.Span), fields,
+	}{Version, device, seq, at.UTC().Format(time.RFC3339Nano), num(tr.At), tr.N, num(tr.Span), fields,
 		num(tr.CSlope), num(tr.DPSlope), num(tr.CChange), num(tr.NetFlow),
 		risePayload{r.Cause, r.Method, num(r.PeakRise), num(r.ResistiveRise), num(r.ElasticRise), r.BaselineBreaths}})
 	return out
@@ -132,8 +139,8 @@ type activePayload struct {
 	Latching bool   `json:"latching"`
 }
 
-// ActiveJSON encodes the set of rules raised now.
-func ActiveJSON(device string, seq int64, active []alerts.Active, at time.Time) []byte {
+// Active encodes the set of rules raised now.
+func Active(device string, seq int64, active []alerts.Active, at time.Time) []byte {
 	list := make([]activePayload, 0, len(active))
 	for _, a := range active {
 		list = append(list, activePayload{a.Rule, a.Level, a.Field, a.EventID, num(a.Since),
@@ -145,13 +152,13 @@ func ActiveJSON(device string, seq int64, active []alerts.Active, at time.Time) 
 		Seq    int64           `json:"seq"`
 		At     string          `json:"at"`
 		Active []activePayload `json:"active"`
-	}{PayloadVersion, device, seq, at.UTC().Format(time.RFC3339Nano), list})
+	}{Version, device, seq, at.UTC().Format(time.RFC3339Nano), list})
 	return out
 }
 
-// StatusJSON encodes the device's status: online or offline, its counters
+// Status encodes the device's status: online or offline, its counters
 // and the advisory notice.
-func StatusJSON(device string, seq int64, state, reason, version string, st Status, pc Counters, at time.Time) []byte {
+func Status(device string, seq int64, state, reason, version string, st stream.Status, pc Counters, at time.Time) []byte {
 	bad := make(map[string]int64, lines.NumCauses)
 	for i, n := range st.Counts.Bad {
 		bad[lines.Cause(i).String()] = n
@@ -181,6 +188,11 @@ func StatusJSON(device string, seq int64, state, reason, version string, st Stat
 		Version  string         `json:"version,omitempty"`
 		Advisory string         `json:"advisory"`
 		Counters map[string]any `json:"counters"`
-	}{PayloadVersion, device, seq, state, reason, at.UTC().Format(time.RFC3339Nano), version, Advisory, counters})
+	}{Version, device, seq, state, reason, at.UTC().Format(time.RFC3339Nano), version, stream.Advisory, counters})
 	return out
+}
+
+// Counters are a publisher's own counts, for the status payload.
+type Counters struct {
+	QueueDepth, Dropped, Sent, Reconnects, Acks, AcksRefused, Unqueued int64
 }
