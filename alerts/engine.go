@@ -67,7 +67,7 @@ type Active struct {
 type state struct {
 	r        Rule
 	kind     int
-	index    int    // breath field index, or Fields index for median./iqr.
+	index    int    // breath field index, or field index for median./iqr.
 	rolling  string // the rolling name without its statistic
 	raised   bool
 	acked    bool
@@ -96,7 +96,7 @@ type Engine struct {
 // distinguishes this run's event ids from earlier runs' (e.g. the start
 // time in base 36).
 func NewEngine(device, run string, rules []Rule) (*Engine, error) {
-	e := &Engine{device: device, run: run, vals: make([]float64, 0, len(mechanics.Fields)), out: make([]Event, 0, 8)}
+	e := &Engine{device: device, run: run, vals: make([]float64, 0, mechanics.NumFields), out: make([]Event, 0, 8)}
 	for _, r := range rules {
 		if r.Off {
 			continue

@@ -32,7 +32,7 @@ const (
 )
 
 // Rule is one threshold rule. Field names a per-breath field of
-// mechanics.Fields, a derived one (peak_plateau_gap), a rolling one
+// mechanics.Fields(), a derived one (peak_plateau_gap), a rolling one
 // (median.<field>, iqr.<field>, slope.compliance, slope.dp,
 // compliance_change, rise.peak, rise.resistive, rise.elastic) or a
 // technical one (since_sample, since_breath, circuit_open, bad_per_min,
@@ -114,21 +114,15 @@ func fieldKind(name string) (int, error) {
 	if name == "peak_plateau_gap" {
 		return kindDerived, nil
 	}
-	for _, f := range mechanics.Fields {
-		if f == name {
-			return kindBreath, nil
-		}
+	if mechanics.FieldIndex(name) >= 0 {
+		return kindBreath, nil
 	}
 	switch name {
 	case "slope.compliance", "slope.dp", "compliance_change", "rise.peak", "rise.resistive", "rise.elastic":
 		return kindRolling, nil
 	}
-	if stat, f, ok := strings.Cut(name, "."); ok && (stat == "median" || stat == "iqr") {
-		for _, g := range mechanics.Fields {
-			if g == f {
-				return kindRolling, nil
-			}
-		}
+	if stat, f, ok := strings.Cut(name, "."); ok && (stat == "median" || stat == "iqr") && mechanics.FieldIndex(f) >= 0 {
+		return kindRolling, nil
 	}
 	return 0, fmt.Errorf("unknown field %q", name)
 }

@@ -101,13 +101,7 @@ type Breath struct {
 	Flags Flags
 }
 
-// Fields are the per-breath numeric fields in output order, with the
-// contract's names.
-var Fields = []string{"t_start", "t_end", "ti", "te", "rr", "ie", "vti", "vte", "leak",
-	"ppeak", "pplat", "peep", "pmean", "dp", "cstat", "cdyn", "rinsp",
-	"fit_r", "fit_c", "fit_p0", "fit_r2", "tau", "mp", "si", "e2_pct", "pause_decay", "peepi", "vt_pbw", "eef"}
-
-// Values appends the numeric fields in the order of Fields.
+// Values appends the numeric fields in output order (see Fields).
 func (b *Breath) Values(dst []float64) []float64 {
 	return append(dst, b.TStart, b.TEnd, b.Ti, b.Te, b.RR, b.IE, b.VTi, b.VTe, b.Leak,
 		b.PPeak, b.PPlat, b.PEEP, b.PMean, b.DP, b.Cstat, b.Cdyn, b.Rinsp,
@@ -118,13 +112,13 @@ func (b *Breath) Values(dst []float64) []float64 {
 // breath's flags disown it (see Untrusted), and false for an unknown name.
 func (b *Breath) Trusted(name string) (float64, bool) {
 	v, ok := b.Field(name)
-	if ok && b.Untrusted(fieldIndex(name)) {
+	if ok && b.Untrusted(FieldIndex(name)) {
 		v = nan
 	}
 	return v, ok
 }
 
-// TrustedValues appends the numeric fields in the order of Fields, with
+// TrustedValues appends the numeric fields in output order (see Fields), with
 // NaN for each value that the breath's flags say is not the lung's (see
 // Untrusted): what rolling statistics, rules and summaries take.
 func (b *Breath) TrustedValues(dst []float64) []float64 {
@@ -139,52 +133,18 @@ func (b *Breath) TrustedValues(dst []float64) []float64 {
 }
 
 // Untrusted reports whether the breath's flags say that the value of
-// Fields[i] is not the lung's.
+// the field at position i is not the lung's.
 func (b *Breath) Untrusted(i int) bool { return b.Flags&untrustedBy[i] != 0 }
-
-// untrustedBy lists, for each field of Fields, the flags under which its
-// value is published but not taken as the lung's: the fitted mechanics
-// under effort or a poor fit, the plateau's numbers when it had not
-// settled or the patient pulled during it, the stress index when its
-// segment or fit is poor or the pause shows that the lung's pressure
-// depends on time (pendelluft, stress relaxation), which bends the
-// pressure of a constant-flow inflation as a change of compliance would.
-var untrustedBy = func() []Flags {
-	fit := FlagFitUnreliable | FlagActiveEffort
-	plat := FlagPlateauUnsettled | FlagActiveEffort
-	by := map[string]Flags{
-		"pplat": plat, "dp": plat, "cstat": plat, "rinsp": plat,
-		"fit_r": fit, "fit_c": fit, "fit_p0": fit, "tau": fit, "e2_pct": fit, "peepi": fit,
-		"si": fit | FlagSIUnreliable | FlagPlateauUnsettled,
-	}
-	out := make([]Flags, len(Fields))
-	for i, f := range Fields {
-		out[i] = by[f]
-	}
-	return out
-}()
 
 // Field returns a numeric field by its contract name, and false for an
 // unknown name.
 func (b *Breath) Field(name string) (float64, bool) {
-	i := fieldIndex(name)
+	i := FieldIndex(name)
 	if i < 0 {
 		return math.NaN(), false
 	}
-	var buf [40]float64
+	var buf [NumFields]float64
 	return b.Values(buf[:0])[i], true
-}
-
-// FieldIndex is the position of a field in Fields, or −1.
-func FieldIndex(name string) int { return fieldIndex(name) }
-
-func fieldIndex(name string) int {
-	for i, f := range Fields {
-		if f == name {
-			return i
-		}
-	}
-	return -1
 }
 
 // Reliable reports whether the fitted mechanics may be read as the lung's.

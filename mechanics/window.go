@@ -78,7 +78,7 @@ type Trend struct {
 	At     float64 // stream time of the latest breath's end, s
 	N      int     // breaths in the window
 	Span   float64 // stream time the window covers, s
-	stats  []Stat  // one per entry of Fields, computed when first asked
+	stats  []Stat  // one per field (see Fields), computed when first asked
 	done   uint64  // bit i: stats[i] computed
 	w      *Window
 	CSlope float64 // compliance slope, mL/cmH2O per hour (cstat, or fit_c without plateaus)
@@ -97,14 +97,14 @@ type Trend struct {
 
 // Stat returns the statistics of a field by name.
 func (t *Trend) Stat(name string) (Stat, bool) {
-	i := fieldIndex(name)
+	i := FieldIndex(name)
 	if i < 0 {
 		return Stat{}, false
 	}
 	return t.StatAt(i), true
 }
 
-// StatAt returns the statistics of Fields[i], computing them on the first
+// StatAt returns the statistics of the field at position i, computing them on the first
 // call after the breath: rules and sinks that need a few fields do not pay
 // for all of them.
 func (t *Trend) StatAt(i int) Stat {
@@ -127,7 +127,7 @@ type part struct {
 // allocated once; Add does not allocate.
 type Window struct {
 	cfg     WindowConfig
-	ring    [][]float64 // the last Breaths breaths' values (Fields order)
+	ring    [][]float64 // the last Breaths breaths' values (output order)
 	flags   []Flags
 	head, n int
 	hist    []part // ring of breath parts for the baseline
@@ -163,13 +163,13 @@ func NewWindow(cfg WindowConfig) (*Window, error) {
 	}
 	w := &Window{cfg: cfg, ring: make([][]float64, cfg.Breaths), flags: make([]Flags, cfg.Breaths)}
 	for i := range w.ring {
-		w.ring[i] = make([]float64, 0, len(Fields))
+		w.ring[i] = make([]float64, 0, NumFields)
 	}
 	// at up to 60 breaths a minute over baseline and window
 	hcap := int((cfg.Baseline+cfg.Span)/60*60) + cfg.Breaths
 	w.hist = make([]part, hcap)
 	w.scratch = make([]float64, 0, max(hcap, cfg.Breaths))
-	w.trend.stats = make([]Stat, len(Fields))
+	w.trend.stats = make([]Stat, NumFields)
 	w.trend.w = w
 	w.idx = make([]int, 0, cfg.Breaths)
 	w.parts = make([]part, 0, cfg.Breaths)
@@ -215,7 +215,7 @@ func (w *Window) Trend() *Trend {
 	tr.done = 0 // the field statistics follow on demand, over w.idx
 	tr.NetFlow = w.netFlow(idx)
 	tr.CSlope = w.complianceSlope(idx)
-	tr.DPSlope = w.slope(idx, fieldIndex("dp"), false)
+	tr.DPSlope = w.slope(idx, FieldIndex("dp"), false)
 	tr.Rise = w.attribute(w.last, idx)
 	return tr
 }
@@ -278,7 +278,7 @@ func (w *Window) netFlow(idx []int) float64 {
 // complianceSlope uses cstat when at least three breaths have one, else
 // the reliable breaths' fit_c.
 func (w *Window) complianceSlope(idx []int) float64 {
-	cs := fieldIndex("cstat")
+	cs := FieldIndex("cstat")
 	n := 0
 	for _, slot := range idx {
 		if !math.IsNaN(w.ring[slot][cs]) {
@@ -288,7 +288,7 @@ func (w *Window) complianceSlope(idx []int) float64 {
 	if n >= 3 {
 		return w.slope(idx, cs, false)
 	}
-	return w.slope(idx, fieldIndex("fit_c"), true)
+	return w.slope(idx, FieldIndex("fit_c"), true)
 }
 
 // slope is the least-squares slope of field f against start time, per hour.
@@ -377,9 +377,9 @@ func (w *Window) windowParts(idx []int) []part {
 }
 
 var (
-	iPeak, iPlat, iPEEP = fieldIndex("ppeak"), fieldIndex("pplat"), fieldIndex("peep")
-	iVTi, iFitC, iCstat = fieldIndex("vti"), fieldIndex("fit_c"), fieldIndex("cstat")
-	iVTe                = fieldIndex("vte")
+	iPeak, iPlat, iPEEP = FieldIndex("ppeak"), FieldIndex("pplat"), FieldIndex("peep")
+	iVTi, iFitC, iCstat = FieldIndex("vti"), FieldIndex("fit_c"), FieldIndex("cstat")
+	iVTe                = FieldIndex("vte")
 )
 
 // partOf derives a breath's parts from its stored values.

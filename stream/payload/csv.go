@@ -10,17 +10,8 @@ import (
 	"breathd/stream"
 )
 
-// csvDecimals is how many decimals each field of mechanics.Fields is
-// written with.
-var csvDecimals = map[string]int{
-	"t_start": 3, "t_end": 3, "ti": 3, "te": 3, "rr": 2, "ie": 2, "vti": 1, "vte": 1, "leak": 1,
-	"ppeak": 2, "pplat": 2, "peep": 2, "pmean": 2, "dp": 2, "cstat": 2, "cdyn": 2, "rinsp": 2,
-	"fit_r": 2, "fit_c": 2, "fit_p0": 2, "fit_r2": 4, "tau": 3, "mp": 2, "si": 3, "e2_pct": 1, "pause_decay": 2,
-	"peepi": 2, "vt_pbw": 2, "eef": 2,
-}
-
 // CSVWriter writes one row per breath: seq, the fields of
-// mechanics.Fields, and flags (space-separated words), with a header
+// mechanics.Fields() with their Decimals, and flags (space-separated words), with a header
 // first; a null value is an empty cell. Safe for one goroutine.
 type CSVWriter struct {
 	w    *bufio.Writer
@@ -34,11 +25,11 @@ var _ stream.Sink = (*CSVWriter)(nil)
 
 // NewCSVWriter writes the header to w.
 func NewCSVWriter(w io.Writer) *CSVWriter {
-	c := &CSVWriter{w: bufio.NewWriterSize(w, 64<<10), buf: make([]byte, 0, 512), vals: make([]float64, 0, len(mechanics.Fields))}
+	c := &CSVWriter{w: bufio.NewWriterSize(w, 64<<10), buf: make([]byte, 0, 512), vals: make([]float64, 0, mechanics.NumFields)}
 	c.w.WriteString("seq")
-	for _, f := range mechanics.Fields {
-		c.w.WriteString("," + f)
-		c.dec = append(c.dec, csvDecimals[f])
+	for _, f := range mechanics.Fields() {
+		c.w.WriteString("," + f.Name)
+		c.dec = append(c.dec, f.Decimals)
 	}
 	c.w.WriteString(",flags\n")
 	return c

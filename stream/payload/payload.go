@@ -63,15 +63,15 @@ func Event(ev *alerts.Event) []byte {
 }
 
 // Breath encodes a breath record: "v", device, "at", and the fields of
-// mechanics.Fields under their names (null when not computed), seq and
+// mechanics.Fields() under their names (null when not computed), seq and
 // flags.
 func Breath(device string, b *mechanics.Breath, at time.Time) []byte {
-	var vals [40]float64
+	var vals [mechanics.NumFields]float64
 	v := b.Values(vals[:0])
 	m := make(map[string]any, len(v)+5)
 	m["v"], m["device"], m["seq"], m["at"] = Version, device, b.Seq, at.UTC().Format(time.RFC3339Nano)
-	for i, f := range mechanics.Fields {
-		m[f] = num(v[i])
+	for i, f := range mechanics.Fields() {
+		m[f.Name] = num(v[i])
 	}
 	flags := b.Flags.Words()
 	if flags == nil {
@@ -101,10 +101,10 @@ type risePayload struct {
 
 // Trend encodes the rolling window summary after breath seq.
 func Trend(device string, seq int64, tr *mechanics.Trend, at time.Time) []byte {
-	fields := make(map[string]statPayload, len(mechanics.Fields))
-	for i, f := range mechanics.Fields {
+	fields := make(map[string]statPayload, mechanics.NumFields)
+	for i, f := range mechanics.Fields() {
 		s := tr.StatAt(i)
-		fields[f] = statPayload{num(s.Median), num(s.Q1), num(s.Q3), num(s.IQR()), s.N}
+		fields[f.Name] = statPayload{num(s.Median), num(s.Q1), num(s.Q3), num(s.IQR()), s.N}
 	}
 	r := tr.Rise
 	out, _ := json.Marshal(struct {

@@ -22,16 +22,25 @@ import (
 
 var soakHours = flag.Float64("soak-hours", 2, "simulated hours for TestSoak (24 for the full soak)")
 
-// heapProbe reads the live heap after a GC at chosen stream times.
+// heapProbe reads the live heap after a GC at chosen stream times, once
+// every breath record offered so far has reached the subscriber (or was
+// counted as dropped), so that messages in flight are not taken for a
+// leak.
 type heapProbe struct {
-	at    []float64
-	heap  []uint64
-	next  int
-	grtns []int
+	at      []float64
+	heap    []uint64
+	next    int
+	grtns   []int
+	seen    int64              // breaths before this one
+	settled func(n int64) bool // every one of n breath records is accounted for
 }
 
 func (h *heapProbe) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
+	h.seen++
 	if h.next < len(h.at) && b.TEnd >= h.at[h.next] {
+		for deadline := time.Now().Add(10 * time.Second); !h.settled(h.seen) && time.Now().Before(deadline); {
+			time.Sleep(time.Millisecond)
+		}
 		runtime.GC()
 		var ms runtime.MemStats
 		runtime.ReadMemStats(&ms)
@@ -79,7 +88,10 @@ func TestSoak(t *testing.T) {
 	if err := sc.Validate(); err != nil {
 		t.Fatal(err)
 	}
-	probe := &heapProbe{at: []float64{3600, hours*3600 - 10}}
+	probe := &heapProbe{at: []float64{3600, hours*3600 - 10}, settled: func(n int64) bool {
+		c := pub.Counters()
+		return c.QueueDepth == 0 && breaths.Load()+c.Dropped >= n
+	}}
 	src := device.NewSim(sc, device.SimFormat{Header: true}, 0, nil)
 	st, err := stream.Run(context.Background(), src, stream.Config{Device: "soak", Rules: alerts.Defaults(), Sink: stream.Sinks{pub, probe}, Control: ctl})
 	if err != nil {
@@ -88,9 +100,8 @@ func TestSoak(t *testing.T) {
 	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
 	defer cancel()
 	pub.Close(ctx)
-	deadline := time.Now().Add(10 * time.Second)
-	for events.Load() < st.Events && time.Now().Before(deadline) {
-		time.Sleep(20 * time.Millisecond)
+	for deadline := time.Now().Add(10 * time.Second); events.Load() < st.Events && time.Now().Before(deadline); {
+		time.Sleep(time.Millisecond)
 	}
 	sub.Disconnect(50)
 	if len(probe.heap) != 2 {
