@@ -10,11 +10,14 @@ import (
 	"breathd/mechanics"
 )
 
+// Transition is what happened to a rule.
+type Transition string
+
 // Transitions of a rule.
 const (
-	Raised       = "raised"
-	Cleared      = "cleared"
-	Acknowledged = "acknowledged"
+	Raised       Transition = "raised"
+	Cleared                 = "cleared"
+	Acknowledged            = "acknowledged"
 )
 
 // Tech is a device's technical state, given to Tick. A NaN field is not
@@ -36,25 +39,25 @@ func Unknown() Tech {
 
 // Event is one transition of one rule.
 type Event struct {
-	ID         string    // device/rule/run-seq, unique per device and run
-	Seq        int64     // the device's event number in this run
-	Device     string    // device id
-	Rule       string    // rule id
-	Transition string    // raised, cleared or acknowledged
-	Level      string    // notice, warning or urgent
-	Field      string    // the field the rule watches
-	Value      float64   // its value at the transition (NaN for an acknowledgement)
-	Threshold  float64   // above/below: the threshold; outside: NaN
-	Low, High  float64   // outside: the band; else NaN
-	Latching   bool      // the rule stays raised until acknowledged
-	T          float64   // stream time, s
-	At         time.Time // wall-clock time
+	ID         string     // device/rule/run-seq, unique per device and run
+	Seq        int64      // the device's event number in this run
+	Device     string     // device id
+	Rule       string     // rule id
+	Transition Transition // raised, cleared or acknowledged
+	Level      Level      // notice, warning or urgent
+	Field      string     // the field the rule watches
+	Value      float64    // its value at the transition (NaN for an acknowledgement)
+	Threshold  float64    // above/below: the threshold; outside: NaN
+	Low, High  float64    // outside: the band; else NaN
+	Latching   bool       // the rule stays raised until acknowledged
+	T          float64    // stream time, s
+	At         time.Time  // wall-clock time
 }
 
 // Active is a rule raised now.
 type Active struct {
 	Rule     string
-	Level    string
+	Level    Level
 	Field    string
 	EventID  string    // the raising event's id, for Ack
 	Since    float64   // stream time raised, s
@@ -281,7 +284,7 @@ func (e *Engine) clearRule(st *state, v, t float64, wall time.Time) {
 	e.emit(st, Cleared, v, t, wall)
 }
 
-func (e *Engine) emit(st *state, transition string, v, t float64, wall time.Time) *Event {
+func (e *Engine) emit(st *state, transition Transition, v, t float64, wall time.Time) *Event {
 	e.seq++
 	r := &st.r
 	ev := Event{Seq: e.seq, Device: e.device, Rule: r.ID, Transition: transition, Level: r.Level, Field: r.Field,

@@ -26,7 +26,7 @@ func feed(t *testing.T, e *Engine, values []float64) []string {
 	for i, v := range values {
 		b := mechanics.Breath{TEnd: float64(i+1) * 4, PPlat: v}
 		for _, ev := range e.Breath(&b, nil, wall) {
-			got = append(got, ev.Transition+"@"+itoa(i))
+			got = append(got, string(ev.Transition)+"@"+itoa(i))
 		}
 	}
 	return got
@@ -240,7 +240,7 @@ func TestDisownedValuesChangeNothing(t *testing.T) {
 	for i := range 6 {
 		b := mechanics.Breath{TEnd: float64(i+1) * 4, PPlat: 35, FitC: 20, Flags: mechanics.FlagPlateauUnsettled | mechanics.FlagActiveEffort}
 		for _, ev := range e.Breath(&b, nil, wall) {
-			got = append(got, ev.Rule+" "+ev.Transition)
+			got = append(got, ev.Rule+" "+string(ev.Transition))
 		}
 	}
 	if len(got) != 0 {
@@ -250,7 +250,7 @@ func TestDisownedValuesChangeNothing(t *testing.T) {
 	for range 3 {
 		got = got[:0]
 		for _, ev := range e.Breath(&b, nil, wall) {
-			got = append(got, ev.Rule+" "+ev.Transition)
+			got = append(got, ev.Rule+" "+string(ev.Transition))
 		}
 		b.TEnd += 4
 	}

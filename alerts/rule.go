@@ -17,18 +17,24 @@ import (
 	"breathd/mechanics"
 )
 
+// Level is how urgent a rule is.
+type Level string
+
 // Levels, in increasing urgency.
 const (
-	LevelNotice  = "notice"
-	LevelWarning = "warning"
-	LevelUrgent  = "urgent"
+	LevelNotice  Level = "notice"
+	LevelWarning Level = "warning"
+	LevelUrgent  Level = "urgent"
 )
+
+// Comparison is how a rule compares its field with its threshold.
+type Comparison string
 
 // Comparisons.
 const (
-	Above   = "above"   // condition: value > threshold; clears below threshold − hysteresis
-	Below   = "below"   // condition: value < threshold; clears above threshold + hysteresis
-	Outside = "outside" // condition: value < low or > high; clears inside [low + h, high − h]
+	Above   Comparison = "above"   // condition: value > threshold; clears below threshold − hysteresis
+	Below              = "below"   // condition: value < threshold; clears above threshold + hysteresis
+	Outside            = "outside" // condition: value < low or > high; clears inside [low + h, high − h]
 )
 
 // Rule is one threshold rule. Field names a per-breath field of
@@ -38,13 +44,13 @@ const (
 // technical one (since_sample, since_breath, circuit_open, bad_per_min,
 // rate_error, port_lost).
 type Rule struct {
-	ID         string  `yaml:"id"`
-	Field      string  `yaml:"field"`
-	Compare    string  `yaml:"compare"`   // above, below or outside
-	Threshold  float64 `yaml:"threshold"` // above, below
-	Low        float64 `yaml:"low"`       // outside
-	High       float64 `yaml:"high"`      // outside
-	Hysteresis float64 `yaml:"hysteresis"`
+	ID         string     `yaml:"id"`
+	Field      string     `yaml:"field"`
+	Compare    Comparison `yaml:"compare"`   // above, below or outside
+	Threshold  float64    `yaml:"threshold"` // above, below
+	Low        float64    `yaml:"low"`       // outside
+	High       float64    `yaml:"high"`      // outside
+	Hysteresis float64    `yaml:"hysteresis"`
 	// RaiseAfter is how many consecutive evaluations (breaths, or ticks for
 	// technical fields) the condition must hold; RaiseAfterSec, if set, is
 	// how long it must hold as well, s.
@@ -53,7 +59,7 @@ type Rule struct {
 	// ClearAfter is how many consecutive evaluations must be back past the
 	// hysteresis margin before it clears.
 	ClearAfter int    `yaml:"clear_after"`
-	Level      string `yaml:"level"`    // notice, warning or urgent
+	Level      Level  `yaml:"level"`    // notice, warning or urgent
 	Latching   bool   `yaml:"latching"` // stays raised until acknowledged
 	Off        bool   `yaml:"off"`      // switched off
 	Source     string `yaml:"source"`   // where the default comes from

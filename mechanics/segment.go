@@ -124,11 +124,14 @@ type Drops struct {
 	Restarts int64 // detection restarted without a breath (stream start mid-breath)
 }
 
+// segState is where the segmenter is in the breath cycle.
+type segState uint8
+
 const (
-	stSync = iota // wait for a sample that is not inspiration
-	stWait        // no breath in progress: wait for an inflation
-	stInsp        // a breath's inspiration: flow, then perhaps a pause
-	stExp         // expiration: wait for the next inflation
+	stSync segState = iota // wait for a sample that is not inspiration
+	stWait                 // no breath in progress: wait for an inflation
+	stInsp                 // a breath's inspiration: flow, then perhaps a pause
+	stExp                  // expiration: wait for the next inflation
 )
 
 // Segmenter finds breaths in a stream of samples and computes each one's
@@ -150,7 +153,7 @@ const (
 type Segmenter struct {
 	cfg   Config
 	pbw   float64 // kg, 0 without a patient
-	state int
+	state segState
 
 	t, paw, flow []float64 // samples since the breath (or the wait) began
 	n            int
@@ -163,19 +166,19 @@ type Segmenter struct {
 
 	// the inflation being confirmed (cand ≥ 0) and the current breath's
 	// inspiration
-	cand      int     // candidate's first index, −1 for none
-	candPrev  int     // the state the candidate came from
-	candVol   float64 // volume since the candidate's start, L·min/s·… (flow × s, L/min·s)
-	candBase  float64 // airway pressure before the candidate, cmH2O
-	candMax   float64 // highest airway pressure since the candidate's start, cmH2O
-	candPeak  float64 // highest flow since the candidate's start, L/min
-	pBase     float64 // the breath's pressure before its inflation, cmH2O
-	pTop      float64 // highest airway pressure of the inspiration, cmH2O
-	peakFlow  float64 // highest inspiratory flow of the breath, L/min
-	recentVT  ring8   // the last breaths' inspired volumes, mL
-	recentSw  ring8   // … and pressure swings ppeak − peep, cmH2O
-	recentR   ring8   // … and reliable fitted resistances, cmH2O·s/L
-	recentPF  ring8   // … and peak inspiratory flows, L/min
+	cand      int      // candidate's first index, −1 for none
+	candPrev  segState // the state the candidate came from
+	candVol   float64  // volume since the candidate's start, L·min/s·… (flow × s, L/min·s)
+	candBase  float64  // airway pressure before the candidate, cmH2O
+	candMax   float64  // highest airway pressure since the candidate's start, cmH2O
+	candPeak  float64  // highest flow since the candidate's start, L/min
+	pBase     float64  // the breath's pressure before its inflation, cmH2O
+	pTop      float64  // highest airway pressure of the inspiration, cmH2O
+	peakFlow  float64  // highest inspiratory flow of the breath, L/min
+	recentVT  ring8    // the last breaths' inspired volumes, mL
+	recentSw  ring8    // … and pressure swings ppeak − peep, cmH2O
+	recentR   ring8    // … and reliable fitted resistances, cmH2O·s/L
+	recentPF  ring8    // … and peak inspiratory flows, L/min
 	medVT     float64
 	medSw     float64
 	medPF     float64

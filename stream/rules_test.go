@@ -27,7 +27,7 @@ func (c *collect) Event(ev *alerts.Event, _ []alerts.Active) {
 	c.rise = append(c.rise, c.w.Trend().Rise)
 }
 
-func (c *collect) first(rule, transition string) (alerts.Event, int, bool) {
+func (c *collect) first(rule string, transition alerts.Transition) (alerts.Event, int, bool) {
 	for i, ev := range c.events {
 		if ev.Rule == rule && ev.Transition == transition {
 			return ev, i, true

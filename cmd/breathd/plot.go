@@ -30,7 +30,7 @@ var (
 	colVolume   = color.RGBA{R: 0x6a, G: 0x4c, B: 0x93, A: 0xff} // violet
 	colMark     = color.RGBA{R: 0xc0, G: 0x6c, B: 0x00, A: 0xff} // amber
 	colGrid     = color.RGBA{R: 0xdd, G: 0xdd, B: 0xdd, A: 0xff}
-	colLevel    = map[string]color.Color{
+	colLevel    = map[alerts.Level]color.Color{
 		alerts.LevelNotice:  color.RGBA{R: 0x88, G: 0x88, B: 0x88, A: 0xff},
 		alerts.LevelWarning: color.RGBA{R: 0xd0, G: 0x8c, B: 0x00, A: 0xff},
 		alerts.LevelUrgent:  color.RGBA{R: 0xb0, G: 0x1e, B: 0x1e, A: 0xff},

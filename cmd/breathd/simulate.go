@@ -116,7 +116,7 @@ func (f *simFlags) apply(fs *flag.FlagSet, sc *lungsim.Scenario, all bool) {
 		}
 	}
 	if use("mode") {
-		st.Mode = f.mode
+		st.Mode = lungsim.Mode(f.mode)
 	}
 	if use("duration") {
 		sc.Duration = f.duration

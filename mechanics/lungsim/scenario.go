@@ -12,16 +12,20 @@ import (
 )
 
 // Ventilation modes of the simulator.
+// Mode is the simulated ventilator's mode.
+type Mode string
+
+// Modes.
 const (
-	ModeVC = "vc" // volume control: set flow, optional end-inspiratory pause
-	ModePC = "pc" // pressure control: set pressure above PEEP for Ti, with a rise time
-	ModePS = "ps" // pressure support: triggered by the patient, cycled at a fraction of peak flow
+	ModeVC Mode = "vc" // volume control: set flow, optional end-inspiratory pause
+	ModePC      = "pc" // pressure control: set pressure above PEEP for Ti, with a rise time
+	ModePS      = "ps" // pressure support: triggered by the patient, cycled at a fraction of peak flow
 )
 
 // Settings are the patient's lung, the ventilator's settings and the
 // patient's effort, as they hold for one breath. Units are in the comments.
 type Settings struct {
-	Mode  string  `yaml:"mode"`  // vc, pc or ps
+	Mode  Mode    `yaml:"mode"`  // vc, pc or ps
 	R     float64 `yaml:"r"`     // airway resistance, cmH2O·s/L
 	C     float64 `yaml:"c"`     // compliance, mL/cmH2O
 	PEEP  float64 `yaml:"peep"`  // set PEEP, cmH2O
@@ -179,7 +183,7 @@ type Change struct {
 	At         time.Duration      `yaml:"at"`
 	Ramp       time.Duration      `yaml:"ramp"`
 	Set        map[string]float64 `yaml:"set"`
-	Mode       string             `yaml:"mode"`
+	Mode       Mode               `yaml:"mode"`
 	Disconnect time.Duration      `yaml:"disconnect"`
 }
 

@@ -19,7 +19,7 @@ type Truth struct {
 	Seq    int     // breath number, from 1
 	TStart float64 // s
 	TEnd   float64 // s, the next breath's start
-	Mode   string  // vc, pc or ps
+	Mode   Mode    // vc, pc or ps
 	R      float64 // set (central airway) resistance, cmH2O·s/L
 	C      float64 // set compliance (of the first compartment), mL/cmH2O
 	// REq is the resistance of the single compartment that matches the
@@ -49,8 +49,11 @@ type SimSample struct {
 	Open     bool    // the circuit is disconnected
 }
 
+// phase is where the simulated ventilator is in its cycle.
+type phase uint8
+
 const (
-	phaseInsp = iota
+	phaseInsp phase = iota
 	phasePause
 	phaseExp
 )
@@ -78,7 +81,7 @@ type Sim struct {
 	set   Settings
 	cl    float64 // compliance, L/cmH2O
 	decay float64 // exp(−h/τ)
-	phase int
+	phase phase
 	open  bool
 
 	bStart, flowEnd, pauseEnd, inspEnd, next, expStart float64

@@ -8,7 +8,7 @@ import (
 	"breathd/mechanics"
 )
 
-func passive(mode string) Scenario {
+func passive(mode Mode) Scenario {
 	return Scenario{RateHz: 100, Duration: time.Minute, Settings: Settings{
 		Mode: mode, R: 10, C: 50, PEEP: 5, RR: 15, VT: 500, Ti: 1.2, Pause: 0.3, PInsp: 15}}
 }

@@ -443,7 +443,7 @@ func (d *Decoder) resolve(line []byte) (header bool, err error) {
 	if numeric {
 		names = f.Columns
 		if len(names) == 0 {
-			names = DefaultColumns
+			names = defaultColumns[:]
 		}
 	}
 	if err := d.setColumns(names); err != nil {

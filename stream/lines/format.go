@@ -17,8 +17,12 @@ const (
 	ColVol  = "vol"
 )
 
-// DefaultColumns is the column order used when a stream has no header.
-var DefaultColumns = []string{ColT, ColPaw, ColFlow}
+// defaultColumns is the column order used when a stream has no header.
+var defaultColumns = [...]string{ColT, ColPaw, ColFlow}
+
+// DefaultColumns returns the column order used when a stream has no
+// header: t, paw, flow.
+func DefaultColumns() []string { return append([]string(nil), defaultColumns[:]...) }
 
 // DefaultGapLimit is the largest time step that is not a gap.
 const DefaultGapLimit = 500 * time.Millisecond
@@ -27,7 +31,7 @@ const DefaultGapLimit = 500 * time.Millisecond
 // defaults" for every field; a recording's format directive fills only the
 // fields left at their zero value.
 type Format struct {
-	Columns   []string          // column order without a header; nil: DefaultColumns
+	Columns   []string          // column order without a header; nil: DefaultColumns()
 	Delimiter string            // "auto" or "": detect; "comma", "semicolon", "tab", "space", or the character itself
 	RateHz    float64           // sample rate, required without a t column; 0: unset
 	Units     map[string]string // column name → unit; missing: the column's default unit

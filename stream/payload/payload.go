@@ -35,21 +35,21 @@ func (n num) MarshalJSON() ([]byte, error) {
 // eventPayload is an event transition as published and as written by
 // analyze --events.
 type eventPayload struct {
-	V          int    `json:"v"`
-	ID         string `json:"id"`
-	Seq        int64  `json:"seq"`
-	Device     string `json:"device"`
-	Rule       string `json:"rule"`
-	Transition string `json:"transition"`
-	Level      string `json:"level"`
-	Field      string `json:"field"`
-	Value      num    `json:"value"`
-	Threshold  num    `json:"threshold"`
-	Low        num    `json:"low"`
-	High       num    `json:"high"`
-	Latching   bool   `json:"latching"`
-	T          num    `json:"t"`
-	At         string `json:"at"`
+	V          int               `json:"v"`
+	ID         string            `json:"id"`
+	Seq        int64             `json:"seq"`
+	Device     string            `json:"device"`
+	Rule       string            `json:"rule"`
+	Transition alerts.Transition `json:"transition"`
+	Level      alerts.Level      `json:"level"`
+	Field      string            `json:"field"`
+	Value      num               `json:"value"`
+	Threshold  num               `json:"threshold"`
+	Low        num               `json:"low"`
+	High       num               `json:"high"`
+	Latching   bool              `json:"latching"`
+	T          num               `json:"t"`
+	At         string            `json:"at"`
 }
 
 // Event encodes an event as its JSON payload (one line, no newline).
@@ -128,15 +128,15 @@ func Trend(device string, seq int64, tr *mechanics.Trend, at time.Time) []byte {
 }
 
 type activePayload struct {
-	Rule     string `json:"rule"`
-	Level    string `json:"level"`
-	Field    string `json:"field"`
-	EventID  string `json:"event_id"`
-	Since    num    `json:"since_t"`
-	SinceAt  string `json:"since_at"`
-	Value    num    `json:"value"`
-	Acked    bool   `json:"acknowledged"`
-	Latching bool   `json:"latching"`
+	Rule     string       `json:"rule"`
+	Level    alerts.Level `json:"level"`
+	Field    string       `json:"field"`
+	EventID  string       `json:"event_id"`
+	Since    num          `json:"since_t"`
+	SinceAt  string       `json:"since_at"`
+	Value    num          `json:"value"`
+	Acked    bool         `json:"acknowledged"`
+	Latching bool         `json:"latching"`
 }
 
 // Active encodes the set of rules raised now.
