@@ -96,6 +96,9 @@ func TestUserErrors(t *testing.T) {
 		{"config missing", []string{"check", "/nonexistent.yaml"}, 1, "does not exist"},
 		{"absent port", []string{"run", "--no-mqtt", "--config", absent}, 1, "serial port /dev/breathd-no-such-port does not exist: check the cable"},
 		{"not a recording", []string{"replay", "--no-mqtt", "--speed", "max", "testdata"}, 1, "is a directory"},
+		{"watch bad scheme", []string{"watch", "--broker", "http://127.0.0.1:1"}, 1, `scheme "http", want mqtt or mqtts`},
+		{"watch missing CA", []string{"watch", "--broker", "mqtts://127.0.0.1:1", "--ca-file", "/nonexistent.pem"}, 1, "CA file: open /nonexistent.pem"},
+		{"watch no broker", []string{"watch", "--broker", "mqtt://127.0.0.1:1"}, 1, "cannot reach the broker at mqtt://127.0.0.1:1"},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {

@@ -42,11 +42,43 @@ type embeddedConfig struct {
 	PasswordFile string `yaml:"password_file"` // user:password lines; required off loopback
 }
 
+// clientFlags are the flags of any MQTT client of breathd (run's
+// publishers, watch): credentials and TLS.
+type clientFlags struct {
+	username, passwordFile, passwordEnv, caFile, certFile, keyFile string
+}
+
+func (m *clientFlags) register(fs *flag.FlagSet) {
+	fs.StringVar(&m.username, "username", "", "MQTT username")
+	fs.StringVar(&m.passwordFile, "password-file", "", "file holding the MQTT password")
+	fs.StringVar(&m.passwordEnv, "password-env", "", "environment variable holding the MQTT password")
+	fs.StringVar(&m.caFile, "ca-file", "", "mqtts: CA certificate file (PEM)")
+	fs.StringVar(&m.certFile, "cert-file", "", "mqtts: client certificate (PEM)")
+	fs.StringVar(&m.keyFile, "key-file", "", "mqtts: client key (PEM)")
+}
+
+// apply lays the flags that are set over c.
+func (m *clientFlags) apply(c *mqttConfig) {
+	setFlag(&c.Username, m.username)
+	setFlag(&c.PasswordFile, m.passwordFile)
+	setFlag(&c.PasswordEnv, m.passwordEnv)
+	setFlag(&c.CAFile, m.caFile)
+	setFlag(&c.CertFile, m.certFile)
+	setFlag(&c.KeyFile, m.keyFile)
+}
+
+// setFlag sets *dst to v when the flag was given.
+func setFlag(dst *string, v string) {
+	if v != "" {
+		*dst = v
+	}
+}
+
 // mqttFlags registers the publishing flags, which override the file.
 type mqttFlags struct {
-	broker, root, listen, brokerPasswords, username, passwordFile, passwordEnv string
-	caFile, certFile, keyFile, stateDir                                        string
-	noMQTT                                                                     bool
+	clientFlags
+	broker, root, listen, brokerPasswords, stateDir string
+	noMQTT                                          bool
 }
 
 func (m *mqttFlags) register(fs *flag.FlagSet) {
@@ -54,35 +86,26 @@ func (m *mqttFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&m.listen, "listen", "", "where the embedded broker listens (default 127.0.0.1:1883)")
 	fs.StringVar(&m.brokerPasswords, "broker-passwords", "", "user:password file for the embedded broker (required off loopback)")
 	fs.StringVar(&m.root, "root", "", "topic root (default breathd)")
-	fs.StringVar(&m.username, "username", "", "MQTT username")
-	fs.StringVar(&m.passwordFile, "password-file", "", "file holding the MQTT password")
-	fs.StringVar(&m.passwordEnv, "password-env", "", "environment variable holding the MQTT password")
-	fs.StringVar(&m.caFile, "ca-file", "", "mqtts: CA certificate file (PEM)")
-	fs.StringVar(&m.certFile, "cert-file", "", "mqtts: client certificate (PEM)")
-	fs.StringVar(&m.keyFile, "key-file", "", "mqtts: client key (PEM)")
+	m.clientFlags.register(fs)
 	fs.StringVar(&m.stateDir, "state-dir", "", "directory for the durable event queue (default: in memory only)")
 	fs.BoolVar(&m.noMQTT, "no-mqtt", false, "do not publish over MQTT")
 }
 
 // apply lays the flags over the file's settings.
 func (m *mqttFlags) apply(c *mqttConfig, e *embeddedConfig, stateDir *string) {
-	set := func(dst *string, v string) {
-		if v != "" {
-			*dst = v
-		}
-	}
-	set(&c.Broker, m.broker)
-	set(&c.Root, m.root)
-	set(&c.Username, m.username)
-	set(&c.PasswordFile, m.passwordFile)
-	set(&c.PasswordEnv, m.passwordEnv)
-	set(&c.CAFile, m.caFile)
-	set(&c.CertFile, m.certFile)
-	set(&c.KeyFile, m.keyFile)
-	set(&e.Listen, m.listen)
-	set(&e.PasswordFile, m.brokerPasswords)
-	set(stateDir, m.stateDir)
+	setFlag(&c.Broker, m.broker)
+	setFlag(&c.Root, m.root)
+	m.clientFlags.apply(c)
+	setFlag(&e.Listen, m.listen)
+	setFlag(&e.PasswordFile, m.brokerPasswords)
+	setFlag(stateDir, m.stateDir)
 	c.Off = c.Off || m.noMQTT
+}
+
+// dial is how a client reaches the broker at url with these settings.
+func (c *mqttConfig) dial(url, password string) publish.Dial {
+	return publish.Dial{Broker: url, Username: c.Username, Password: password,
+		CAFile: c.CAFile, CertFile: c.CertFile, KeyFile: c.KeyFile}
 }
 
 // password reads the MQTT password from its file or the environment.
@@ -158,8 +181,7 @@ func (s *mqttSession) publisher(dev string, ctl *stream.Control) (*publish.Publi
 	if s.cfg.ClientID != "" {
 		clientID = s.cfg.ClientID + "-" + dev
 	}
-	p, err := publish.New(publish.Config{Broker: s.url, Root: s.cfg.Root, Device: dev, ClientID: clientID,
-		Username: s.cfg.Username, Password: s.password, CAFile: s.cfg.CAFile, CertFile: s.cfg.CertFile, KeyFile: s.cfg.KeyFile,
+	p, err := publish.New(publish.Config{Dial: s.dial(), Root: s.cfg.Root, Device: dev, ClientID: clientID,
 		StateDir: dir, BreathQoS: byte(s.cfg.BreathQoS), StatusEvery: s.cfg.StatusEvery, Version: versionString(),
 		Status: ctl.Status, Log: s.log.With().Str("device", dev).Logger()})
 	if err != nil {
@@ -168,6 +190,9 @@ func (s *mqttSession) publisher(dev string, ctl *stream.Control) (*publish.Publi
 	p.SetAck(ctl.Ack)
 	return p, nil
 }
+
+// dial is how this run's clients reach the broker.
+func (s *mqttSession) dial() publish.Dial { return s.cfg.dial(s.url, s.password) }
 
 // close stops the embedded broker.
 func (s *mqttSession) close() {

@@ -2,8 +2,6 @@ package main
 
 import (
 	"context"
-	"crypto/tls"
-	"crypto/x509"
 	"encoding/json"
 	"fmt"
 	"io"
@@ -13,6 +11,9 @@ import (
 	"strings"
 	"sync"
 	"time"
+
+	"breathd/stream/broker"
+	"breathd/stream/publish"
 
 	paho "github.com/eclipse/paho.mqtt.golang"
 	"github.com/mattn/go-isatty"
@@ -29,41 +30,28 @@ type deviceView struct {
 
 func cmdWatch(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("watch", "watch [flags]", stderr)
-	broker := fs.String("broker", "mqtt://"+defaultListenAddr, "MQTT broker to watch")
+	url := fs.String("broker", "mqtt://"+broker.DefaultListen, "MQTT broker to watch, mqtt://host:port or mqtts://host:port")
 	root := fs.String("root", "breathd", "topic root")
 	only := fs.String("device", "", "show only this device")
-	user := fs.String("username", "", "MQTT username")
-	pwFile := fs.String("password-file", "", "file holding the MQTT password")
-	pwEnv := fs.String("password-env", "", "environment variable holding the MQTT password")
-	caFile := fs.String("ca-file", "", "mqtts: CA certificate file (PEM)")
+	var cf clientFlags
+	cf.register(fs)
 	plain := fs.Bool("plain", false, "print plain lines even on a terminal")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
-	mc := mqttConfig{PasswordFile: *pwFile, PasswordEnv: *pwEnv}
+	var mc mqttConfig
+	cf.apply(&mc)
 	pw, err := mc.password()
 	if err != nil {
 		return err
 	}
-	addr := strings.Replace(strings.Replace(*broker, "mqtts://", "ssl://", 1), "mqtt://", "tcp://", 1)
-	opts := paho.NewClientOptions().AddBroker(addr).SetClientID(fmt.Sprintf("breathd-watch-%d", os.Getpid())).
-		SetCleanSession(true).SetOrderMatters(false).SetAutoReconnect(true).SetMaxReconnectInterval(5 * time.Second).
-		SetConnectTimeout(5 * time.Second)
-	if *user != "" {
-		opts.SetUsername(*user).SetPassword(pw)
+	dial := mc.dial(*url, pw)
+	opts, err := dial.Options()
+	if err != nil {
+		return err
 	}
-	if strings.HasPrefix(*broker, "mqtts://") {
-		tc := &tls.Config{MinVersion: tls.VersionTLS12}
-		if *caFile != "" {
-			pem, err := os.ReadFile(*caFile)
-			if err != nil {
-				return fmt.Errorf("--ca-file: %w", err)
-			}
-			tc.RootCAs = x509.NewCertPool()
-			tc.RootCAs.AppendCertsFromPEM(pem)
-		}
-		opts.SetTLSConfig(tc)
-	}
+	opts.SetClientID(fmt.Sprintf("breathd-watch-%d", os.Getpid())).SetCleanSession(true).SetOrderMatters(false).
+		SetAutoReconnect(true).SetMaxReconnectInterval(5 * time.Second)
 	var mu sync.Mutex
 	devices := map[string]*deviceView{}
 	tty := !*plain
@@ -106,8 +94,11 @@ func cmdWatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	opts.SetOnConnectHandler(func(c paho.Client) { c.Subscribe(*root+"/+/+", 0, handle) })
 	client := paho.NewClient(opts)
 	if tok := client.Connect(); !tok.WaitTimeout(6*time.Second) || tok.Error() != nil {
-		return fmt.Errorf("cannot reach the broker at %s (%v): is breathd running (it starts one on %s), or give --broker",
-			redactURL(*broker), tokErr(tok.Error()), defaultListenAddr)
+		if dial.Refused(tok.Error()) {
+			return dial.CredentialsRefused()
+		}
+		return fmt.Errorf("cannot reach the broker at %s (%s): is breathd running (it starts one on %s), or give --broker",
+			publish.Redact(*url), publish.ErrText(tok.Error()), broker.DefaultListen)
 	}
 	defer client.Disconnect(100)
 	if !tty {
@@ -127,24 +118,6 @@ func cmdWatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		case <-tick.C:
 		}
 	}
-}
-
-const defaultListenAddr = "127.0.0.1:1883"
-
-func tokErr(err error) any {
-	if err == nil {
-		return "timed out"
-	}
-	return err
-}
-
-func redactURL(u string) string {
-	if i := strings.Index(u, "@"); i > 0 {
-		if j := strings.Index(u, "://"); j > 0 && j < i {
-			return u[:j+3] + "…" + u[i:]
-		}
-	}
-	return u
 }
 
 // f formats a JSON number, "-" for null.

@@ -6,12 +6,9 @@ package publish
 
 import (
 	"context"
-	"crypto/tls"
-	"crypto/x509"
 	"encoding/json"
 	"errors"
 	"fmt"
-	"net/url"
 	"os"
 	"regexp"
 	"strings"
@@ -25,21 +22,15 @@ import (
 	"breathd/stream/payload"
 
 	mqtt "github.com/eclipse/paho.mqtt.golang"
-	"github.com/eclipse/paho.mqtt.golang/packets"
 	"github.com/rs/zerolog"
 )
 
 // Config configures one device's MQTT publisher.
 type Config struct {
-	Broker   string // mqtt://host:port or mqtts://host:port
+	Dial            // the broker and how to reach it
 	Root     string // topic root; default "breathd"
 	Device   string // device id, validated
 	ClientID string // fixed, for a persistent session; default breathd-<host>-<device>
-	Username string
-	Password string // from a file or the environment; never logged
-	CAFile   string // mqtts: CA certificates (PEM); default the system's
-	CertFile string // mqtts: client certificate (PEM), with KeyFile
-	KeyFile  string
 	StateDir string // the device's durable queue; "" keeps it in memory only
 	// BreathQoS is the QoS of breath records (0 or 1; default 0).
 	BreathQoS   byte
@@ -133,7 +124,7 @@ func New(cfg Config) (*Publisher, error) {
 		host, _ := os.Hostname()
 		cfg.ClientID = "breathd-" + sanitize(host) + "-" + cfg.Device
 	}
-	brokerURL, tlsCfg, err := brokerAddress(cfg)
+	opts, err := cfg.Dial.Options()
 	if err != nil {
 		return nil, err
 	}
@@ -146,17 +137,17 @@ func New(cfg Config) (*Publisher, error) {
 	p.topics.breath, p.topics.trend, p.topics.event = base+"breath", base+"trend", base+"event"
 	p.topics.active, p.topics.status, p.topics.ack = base+"active", base+"status", base+"ack"
 
-	opts := p.options(brokerURL, tlsCfg)
+	p.options(opts)
 	client := mqtt.NewClient(opts)
 	tok := client.Connect()
 	if !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
 		err := tok.Error()
-		if isAuthError(err) {
+		if cfg.Dial.Refused(err) {
 			sp.close()
-			return nil, fmt.Errorf("broker %s refused the credentials of user %q: check the username and the password file", redact(cfg.Broker), cfg.Username)
+			return nil, cfg.Dial.CredentialsRefused()
 		}
 		client.Disconnect(0)
-		cfg.Log.Warn().Str("broker", redact(cfg.Broker)).Str("cause", errText(err)).
+		cfg.Log.Warn().Str("broker", Redact(cfg.Broker)).Str("cause", ErrText(err)).
 			Msg("broker not reachable; events are queued and sent when it is")
 		opts.SetConnectRetry(true).SetConnectRetryInterval(2 * time.Second)
 		client = mqtt.NewClient(opts)
@@ -170,18 +161,6 @@ func New(cfg Config) (*Publisher, error) {
 	return p, nil
 }
 
-func errText(err error) string {
-	if err == nil {
-		return "timed out"
-	}
-	return err.Error()
-}
-
-func isAuthError(err error) bool {
-	return errors.Is(err, packets.ErrorRefusedBadUsernameOrPassword) || errors.Is(err, packets.ErrorRefusedNotAuthorised) ||
-		(err != nil && (strings.Contains(err.Error(), "not Authorized") || strings.Contains(err.Error(), "bad user name or password")))
-}
-
 func sanitize(s string) string {
 	b := []byte(s)
 	for i, c := range b {
@@ -192,82 +171,17 @@ func sanitize(s string) string {
 	return string(b)
 }
 
-// redact removes any password from a broker URL before it is logged.
-func redact(raw string) string {
-	u, err := url.Parse(raw)
-	if err != nil {
-		return "(unparsable broker URL)"
-	}
-	if u.User != nil {
-		u.User = url.User(u.User.Username())
-	}
-	return u.String()
-}
-
-// brokerAddress turns mqtt:// and mqtts:// into paho's address and TLS
-// settings.
-func brokerAddress(cfg Config) (string, *tls.Config, error) {
-	u, err := url.Parse(cfg.Broker)
-	if err != nil || u.Host == "" {
-		return "", nil, fmt.Errorf("broker %q: want mqtt://host:port or mqtts://host:port", redact(cfg.Broker))
-	}
-	if u.User != nil {
-		if _, has := u.User.Password(); has {
-			return "", nil, errors.New("broker URL must not carry a password: use a password file or an environment variable")
-		}
-	}
-	port := u.Port()
-	switch u.Scheme {
-	case "mqtt", "tcp":
-		if port == "" {
-			port = "1883"
-		}
-		return "tcp://" + u.Hostname() + ":" + port, nil, nil
-	case "mqtts", "ssl", "tls":
-		if port == "" {
-			port = "8883"
-		}
-	default:
-		return "", nil, fmt.Errorf("broker %q: scheme %q, want mqtt or mqtts", redact(cfg.Broker), u.Scheme)
-	}
-	tc := &tls.Config{MinVersion: tls.VersionTLS12, ServerName: u.Hostname()}
-	if cfg.CAFile != "" {
-		pem, err := os.ReadFile(cfg.CAFile)
-		if err != nil {
-			return "", nil, fmt.Errorf("CA file: %w", err)
-		}
-		pool := x509.NewCertPool()
-		if !pool.AppendCertsFromPEM(pem) {
-			return "", nil, fmt.Errorf("CA file %s has no PEM certificate", cfg.CAFile)
-		}
-		tc.RootCAs = pool
-	}
-	if cfg.CertFile != "" || cfg.KeyFile != "" {
-		cert, err := tls.LoadX509KeyPair(cfg.CertFile, cfg.KeyFile)
-		if err != nil {
-			return "", nil, fmt.Errorf("client certificate: %w", err)
-		}
-		tc.Certificates = []tls.Certificate{cert}
-	}
-	return "ssl://" + u.Hostname() + ":" + port, tc, nil
-}
-
-func (p *Publisher) options(addr string, tc *tls.Config) *mqtt.ClientOptions {
+// options adds the publisher's session, will and handlers to opts.
+func (p *Publisher) options(opts *mqtt.ClientOptions) {
 	cfg := &p.cfg
-	opts := mqtt.NewClientOptions().AddBroker(addr).SetClientID(cfg.ClientID).
+	opts.SetClientID(cfg.ClientID).
 		SetCleanSession(false).SetOrderMatters(false).SetResumeSubs(true).
 		SetAutoReconnect(true).SetMaxReconnectInterval(15*time.Second).
 		SetConnectTimeout(5*time.Second).SetKeepAlive(15*time.Second).SetPingTimeout(5*time.Second).
 		SetWriteTimeout(5*time.Second).SetStore(mqtt.NewOrderedMemoryStore()).
 		SetBinaryWill(p.topics.status, p.statusPayload("offline", "connection lost"), 1, true)
-	if tc != nil {
-		opts.SetTLSConfig(tc)
-	}
-	if cfg.Username != "" {
-		opts.SetUsername(cfg.Username).SetPassword(cfg.Password)
-	}
 	opts.SetOnConnectHandler(func(c mqtt.Client) {
-		cfg.Log.Info().Str("broker", redact(cfg.Broker)).Msg("connected to the MQTT broker")
+		cfg.Log.Info().Str("broker", Redact(cfg.Broker)).Msg("connected to the MQTT broker")
 		p.statusDue.Store(true)
 		if last := p.lastActive.Load(); last != nil {
 			p.sp.setActive(*last)
@@ -276,10 +190,9 @@ func (p *Publisher) options(addr string, tc *tls.Config) *mqtt.ClientOptions {
 		p.nudge()
 	})
 	opts.SetConnectionLostHandler(func(_ mqtt.Client, err error) {
-		cfg.Log.Warn().Str("cause", errText(err)).Msg("lost the MQTT broker; reconnecting")
+		cfg.Log.Warn().Str("cause", ErrText(err)).Msg("lost the MQTT broker; reconnecting")
 	})
 	opts.SetReconnectingHandler(func(mqtt.Client, *mqtt.ClientOptions) { p.reconnects.Add(1) })
-	return opts
 }
 
 func (p *Publisher) nudge() {
