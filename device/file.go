@@ -28,7 +28,7 @@ func OpenFile(path string, speed float64) (*File, error) {
 	f, err := os.Open(path)
 	if err != nil {
 		if errors.Is(err, fs.ErrNotExist) {
-			return nil, fmt.Errorf("recording %s does not exist", path)
+			return nil, fmt.Errorf("recording %s: %w", path, fs.ErrNotExist)
 		}
 		return nil, fmt.Errorf("open recording: %w", err)
 	}

@@ -2,7 +2,9 @@ package device
 
 import (
 	"compress/gzip"
+	"errors"
 	"io"
+	"io/fs"
 	"os"
 	"path/filepath"
 	"sort"
@@ -128,7 +130,7 @@ func TestFileGzipAndPacer(t *testing.T) {
 	if string(b) != "0,5,0\n" {
 		t.Errorf("plain read %q", b)
 	}
-	if _, err := OpenFile(filepath.Join(dir, "none.txt"), 0); err == nil || !strings.Contains(err.Error(), "does not exist") {
+	if _, err := OpenFile(filepath.Join(dir, "none.txt"), 0); !errors.Is(err, fs.ErrNotExist) {
 		t.Errorf("missing file: %v", err)
 	}
 	if _, err := OpenFile(dir, 0); err == nil {

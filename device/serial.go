@@ -135,12 +135,12 @@ func explainOpen(path string, err error) error {
 		case serial.PermissionDenied:
 			return fmt.Errorf("no permission to open serial port %s: add the user to the dialout group", path)
 		case serial.PortNotFound:
-			return fmt.Errorf("serial port %s does not exist: check the cable and the path (breathd ports lists the ports)", path)
+			return fmt.Errorf("serial port %s: %w: check the cable and the path (breathd ports lists the ports)", path, fs.ErrNotExist)
 		}
 		return fmt.Errorf("serial port %s: %s", path, pe.Error())
 	}
 	if errors.Is(err, fs.ErrNotExist) {
-		return fmt.Errorf("serial port %s does not exist: check the cable and the path (breathd ports lists the ports)", path)
+		return fmt.Errorf("serial port %s: %w: check the cable and the path (breathd ports lists the ports)", path, fs.ErrNotExist)
 	}
 	if errors.Is(err, syscall.ENOTTY) {
 		return fmt.Errorf("%s is not a serial port", path)

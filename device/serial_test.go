@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"io/fs"
 	"os"
 	"path/filepath"
 	"strings"
@@ -193,7 +194,7 @@ func TestSerialCloseDuringOutage(t *testing.T) {
 
 func TestSerialOpenErrors(t *testing.T) {
 	_, err := OpenSerial(SerialConfig{Path: "/dev/does-not-exist-breathd"}, zerolog.Nop())
-	if err == nil || !strings.Contains(err.Error(), "does not exist") {
+	if !errors.Is(err, fs.ErrNotExist) || !strings.Contains(err.Error(), "check the cable") {
 		t.Errorf("absent port: %v", err)
 	}
 	f := filepath.Join(t.TempDir(), "plain")

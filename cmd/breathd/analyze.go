@@ -16,6 +16,7 @@ import (
 	"time"
 
 	"breathd/alerts"
+	"breathd/cmd/breathd/internal/config"
 	"breathd/device"
 	"breathd/mechanics"
 	"breathd/stream"
@@ -190,10 +191,10 @@ func (p *mechanicsFlags) register(fs interface {
 }
 
 func (p *mechanicsFlags) config() (mechanics.Config, error) {
-	m := measurementConfig{CircuitCompliance: p.circuit, FlowDelay: p.delay}
-	c, err := m.mechanics(mechanics.Patient{Sex: p.sex, HeightCm: p.height})
+	m := config.Measurement{CircuitCompliance: p.circuit, FlowDelay: p.delay}
+	c, err := m.Mechanics(mechanics.Patient{Sex: p.sex, HeightCm: p.height})
 	if err != nil {
-		return c, usagef("%v", err)
+		return c, usagef("%w", err)
 	}
 	return c, nil
 }

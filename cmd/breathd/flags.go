@@ -57,7 +57,7 @@ func (f *formatFlags) format() (lines.Format, error) {
 		}
 	}
 	if err := out.Validate(); err != nil {
-		return out, usagef("%v", err)
+		return out, usagef("%w", err)
 	}
 	return out, nil
 }

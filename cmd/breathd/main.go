@@ -11,7 +11,6 @@ import (
 	"os"
 	"os/signal"
 	"runtime/debug"
-	"strings"
 	"syscall"
 	"time"
 
@@ -42,12 +41,16 @@ Usage:
 Run "breathd VERB -h" for a verb's flags.
 `
 
-// usageError is a mistake in the command line: exit code 2.
-type usageError struct{ msg string }
+// usageError is a mistake in the command line: exit code 2. It keeps the
+// cause when the message wraps one (%w).
+type usageError struct{ err error }
 
-func (e *usageError) Error() string { return e.msg }
+func (e *usageError) Error() string { return e.err.Error() }
 
-func usagef(format string, a ...any) error { return &usageError{fmt.Sprintf(format, a...)} }
+// Unwrap returns the cause.
+func (e *usageError) Unwrap() error { return errors.Unwrap(e.err) }
+
+func usagef(format string, a ...any) error { return &usageError{fmt.Errorf(format, a...)} }
 
 func main() {
 	os.Exit(run(os.Args[1:], os.Stdout, os.Stderr))
@@ -134,20 +137,9 @@ func parseFlags(fs *flag.FlagSet, args []string) error {
 		return err
 	}
 	if err != nil {
-		return usagef("%s: %v (see breathd %s -h)", fs.Name(), err, fs.Name())
+		return usagef("%s: %w (see breathd %s -h)", fs.Name(), err, fs.Name())
 	}
 	return nil
-}
-
-func parseLevel(s string) (zerolog.Level, error) {
-	if s == "" {
-		return zerolog.InfoLevel, nil
-	}
-	l, err := zerolog.ParseLevel(strings.ToLower(s))
-	if err != nil || l == zerolog.NoLevel {
-		return 0, fmt.Errorf("log level %q: want trace, debug, info, warn or error", s)
-	}
-	return l, nil
 }
 
 // newLogger logs JSON to stderr, or readable lines when stderr is a

@@ -80,7 +80,7 @@ func TestUserErrors(t *testing.T) {
 	}{
 		{"no verb", nil, 2, "no verb given"},
 		{"unknown verb", []string{"fly"}, 2, `unknown verb "fly"`},
-		{"missing file", []string{"replay", "nope.txt"}, 1, "recording nope.txt does not exist"},
+		{"missing file", []string{"replay", "nope.txt"}, 1, "recording nope.txt: file does not exist"},
 		{"bad flag", []string{"replay", "--bogus", "x"}, 2, "flag provided but not defined: -bogus"},
 		{"bad speed", []string{"replay", "--speed", "fast", "x"}, 2, `--speed "fast"`},
 		{"bad unit", []string{"replay", "--unit", "paw=psi", "x"}, 2, `unknown unit "psi" for paw`},
@@ -94,7 +94,7 @@ func TestUserErrors(t *testing.T) {
 		{"config bad circuit", []string{"check", circuit}, 1, "circuit compliance 40 mL/cmH2O: 0 (flow measured at the airway) to 10"},
 		{"bad circuit flag", []string{"analyze", "--circuit-compliance", "-1", "x"}, 2, "circuit compliance -1 mL/cmH2O: 0 (flow measured at the airway) to 10"},
 		{"config missing", []string{"check", "/nonexistent.yaml"}, 1, "does not exist"},
-		{"absent port", []string{"run", "--no-mqtt", "--config", absent}, 1, "serial port /dev/breathd-no-such-port does not exist: check the cable"},
+		{"absent port", []string{"run", "--no-mqtt", "--config", absent}, 1, "serial port /dev/breathd-no-such-port: file does not exist: check the cable"},
 		{"not a recording", []string{"replay", "--no-mqtt", "--speed", "max", "testdata"}, 1, "is a directory"},
 		{"watch bad scheme", []string{"watch", "--broker", "http://127.0.0.1:1"}, 1, `scheme "http", want mqtt or mqtts`},
 		{"watch missing CA", []string{"watch", "--broker", "mqtts://127.0.0.1:1", "--ca-file", "/nonexistent.pem"}, 1, "CA file: open /nonexistent.pem"},

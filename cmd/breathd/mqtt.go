@@ -2,15 +2,14 @@ package main
 
 import (
 	"context"
-	"errors"
 	"flag"
 	"fmt"
-	"os"
 	"path/filepath"
 	"strings"
 	"sync"
 	"time"
 
+	"breathd/cmd/breathd/internal/config"
 	"breathd/stream"
 	"breathd/stream/broker"
 	"breathd/stream/publish"
@@ -18,29 +17,6 @@ import (
 	paho "github.com/eclipse/paho.mqtt.golang"
 	"github.com/rs/zerolog"
 )
-
-// mqttConfig is the publishing part of the configuration (file and flags).
-type mqttConfig struct {
-	Broker       string `yaml:"broker"`    // mqtt://host:port or mqtts://…; empty: the embedded broker
-	Root         string `yaml:"root"`      // topic root; default breathd
-	ClientID     string `yaml:"client_id"` // prefix of the per-device client ids
-	Username     string `yaml:"username"`
-	PasswordFile string `yaml:"password_file"` // the password, alone in a file
-	PasswordEnv  string `yaml:"password_env"`  // or the name of an environment variable holding it
-	CAFile       string `yaml:"ca_file"`
-	CertFile     string `yaml:"cert_file"`
-	KeyFile      string `yaml:"key_file"`
-	BreathQoS    int    `yaml:"breath_qos"` // 0 (default) or 1
-	Off          bool   `yaml:"off"`        // do not publish at all
-
-	StatusEvery time.Duration `yaml:"status_every"` // default 10s
-}
-
-// embeddedConfig is the embedded broker's part.
-type embeddedConfig struct {
-	Listen       string `yaml:"listen"`        // default 127.0.0.1:1883
-	PasswordFile string `yaml:"password_file"` // user:password lines; required off loopback
-}
 
 // clientFlags are the flags of any MQTT client of breathd (run's
 // publishers, watch): credentials and TLS.
@@ -58,7 +34,7 @@ func (m *clientFlags) register(fs *flag.FlagSet) {
 }
 
 // apply lays the flags that are set over c.
-func (m *clientFlags) apply(c *mqttConfig) {
+func (m *clientFlags) apply(c *config.MQTT) {
 	setFlag(&c.Username, m.username)
 	setFlag(&c.PasswordFile, m.passwordFile)
 	setFlag(&c.PasswordEnv, m.passwordEnv)
@@ -92,7 +68,7 @@ func (m *mqttFlags) register(fs *flag.FlagSet) {
 }
 
 // apply lays the flags over the file's settings.
-func (m *mqttFlags) apply(c *mqttConfig, e *embeddedConfig, stateDir *string) {
+func (m *mqttFlags) apply(c *config.MQTT, e *config.Embedded, stateDir *string) {
 	setFlag(&c.Broker, m.broker)
 	setFlag(&c.Root, m.root)
 	m.clientFlags.apply(c)
@@ -102,37 +78,10 @@ func (m *mqttFlags) apply(c *mqttConfig, e *embeddedConfig, stateDir *string) {
 	c.Off = c.Off || m.noMQTT
 }
 
-// dial is how a client reaches the broker at url with these settings.
-func (c *mqttConfig) dial(url, password string) publish.Dial {
-	return publish.Dial{Broker: url, Username: c.Username, Password: password,
-		CAFile: c.CAFile, CertFile: c.CertFile, KeyFile: c.KeyFile}
-}
-
-// password reads the MQTT password from its file or the environment.
-func (c *mqttConfig) password() (string, error) {
-	switch {
-	case c.PasswordFile != "" && c.PasswordEnv != "":
-		return "", errors.New("give the MQTT password by a file or an environment variable, not both")
-	case c.PasswordFile != "":
-		b, err := os.ReadFile(c.PasswordFile)
-		if err != nil {
-			return "", fmt.Errorf("MQTT password file: %w", err)
-		}
-		return strings.TrimRight(string(b), "\r\n"), nil
-	case c.PasswordEnv != "":
-		v, ok := os.LookupEnv(c.PasswordEnv)
-		if !ok {
-			return "", fmt.Errorf("environment variable %s (the MQTT password) is not set", c.PasswordEnv)
-		}
-		return v, nil
-	}
-	return "", nil
-}
-
 // mqttSession is the broker (embedded or not) and the publishers of one
 // run.
 type mqttSession struct {
-	cfg      mqttConfig
+	cfg      config.MQTT
 	password string
 	url      string
 	broker   *broker.Broker
@@ -141,12 +90,12 @@ type mqttSession struct {
 }
 
 // startMQTT starts the embedded broker when no broker is configured.
-func startMQTT(c mqttConfig, e embeddedConfig, stateDir string, log zerolog.Logger) (*mqttSession, error) {
+func startMQTT(c config.MQTT, e config.Embedded, stateDir string, log zerolog.Logger) (*mqttSession, error) {
 	if c.Off {
 		return nil, nil
 	}
 	routePahoLogs(log)
-	pw, err := c.password()
+	pw, err := c.Password()
 	if err != nil {
 		return nil, err
 	}
@@ -192,7 +141,7 @@ func (s *mqttSession) publisher(dev string, ctl *stream.Control) (*publish.Publi
 }
 
 // dial is how this run's clients reach the broker.
-func (s *mqttSession) dial() publish.Dial { return s.cfg.dial(s.url, s.password) }
+func (s *mqttSession) dial() publish.Dial { return s.cfg.Dial(s.url, s.password) }
 
 // close stops the embedded broker.
 func (s *mqttSession) close() {

@@ -10,11 +10,11 @@ import (
 	"io"
 	"math"
 	"os"
-	"regexp"
 	"strconv"
 	"strings"
 	"time"
 
+	"breathd/cmd/breathd/internal/config"
 	"breathd/device"
 	"breathd/mechanics/lungsim"
 	"breathd/stream/lines"
@@ -22,45 +22,6 @@ import (
 	"github.com/creack/pty"
 	"golang.org/x/sys/unix"
 )
-
-// loadScenario reads a scenario file (configs/scenarios/README.md).
-func loadScenario(path string) (lungsim.Scenario, error) {
-	var sc lungsim.Scenario
-	data, err := os.ReadFile(path)
-	if err != nil {
-		if errors.Is(err, os.ErrNotExist) {
-			return sc, fmt.Errorf("scenario file %s does not exist (see configs/scenarios/)", path)
-		}
-		return sc, fmt.Errorf("scenario file: %w", err)
-	}
-	f, err := decodeStrict(path, data, &sc)
-	if err != nil {
-		return sc, err
-	}
-	sc.Defaults()
-	return sc, f.explain(scenarioField(sc.Validate()))
-}
-
-var reScenarioErr = regexp.MustCompile(`^(settings|patient|timeline\[(\d+)\]|sensor|rate_hz|duration)\b:? ?(\w*)`)
-
-// scenarioField turns a scenario validation error into a field error so
-// that it carries a line number.
-func scenarioField(err error) error {
-	if err == nil {
-		return nil
-	}
-	m := reScenarioErr.FindStringSubmatch(err.Error())
-	switch {
-	case m == nil:
-		return err
-	case m[2] != "":
-		i, _ := strconv.Atoi(m[2])
-		return field(err, "timeline", i)
-	case m[1] == "settings" || m[1] == "patient":
-		return field(err, m[1], m[3])
-	}
-	return field(err, m[1])
-}
 
 // simFlags are the settings a simulation can take from flags instead of a
 // scenario file.
@@ -161,7 +122,7 @@ func cmdSimulate(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	var sc lungsim.Scenario
 	if *scenario != "" {
 		var err error
-		if sc, err = loadScenario(*scenario); err != nil {
+		if sc, err = config.LoadScenario(*scenario); err != nil {
 			return err
 		}
 		sf.apply(fs, &sc, false)
@@ -170,7 +131,7 @@ func cmdSimulate(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	}
 	sc.Defaults()
 	if err := sc.Validate(); err != nil {
-		return usagef("%v", err)
+		return usagef("%w", err)
 	}
 	simFmt, err := simFormat(*delim, units, *noTime, !*noHeader, *flowSign, sc.RateHz, *directive)
 	if err != nil {
@@ -227,7 +188,7 @@ func simFormat(delim string, units unitFlag, noTime, header bool, flowSign, rate
 		f.Columns, f.RateHz = []string{"paw", "flow"}, rate
 	}
 	if err := f.Validate(); err != nil {
-		return device.SimFormat{}, usagef("%v", err)
+		return device.SimFormat{}, usagef("%w", err)
 	}
 	d := map[string]byte{"comma": ',', "semicolon": ';', "tab": '\t', "space": ' '}[strings.ToLower(delim)]
 	if d == 0 {

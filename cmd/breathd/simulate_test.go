@@ -80,7 +80,7 @@ func TestScenarioErrorsNameTheLine(t *testing.T) {
 	p := filepath.Join(dir, "bad.yaml")
 	os.WriteFile(p, []byte("name: x\nsettings:\n  mode: vc\n  r: 10\n  c: 0\n  peep: 5\n  rr: 15\n  vt: 400\n  ti: 1\n"), 0o600)
 	code, _, errs := runCLI(t, "simulate", "--scenario", p)
-	if code != 1 || !strings.Contains(errs, p+":5: settings.c: settings: c 0 out of range") {
+	if code != 1 || !strings.Contains(errs, p+":5: settings.c: 0 out of range (1…500)") {
 		t.Errorf("exit %d: %s", code, errs)
 	}
 	os.WriteFile(p, []byte("name: x\nsetings: {}\n"), 0o600)

@@ -10,6 +10,7 @@ import (
 	"time"
 
 	"breathd/alerts"
+	"breathd/cmd/breathd/internal/config"
 	"breathd/device"
 	"breathd/mechanics"
 	"breathd/stream"
@@ -53,9 +54,9 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		return err
 	}
 	path := fs.Arg(0)
-	lvl, err := parseLevel(*level)
+	lvl, err := config.ParseLevel(*level)
 	if err != nil {
-		return usagef("%v", err)
+		return usagef("%w", err)
 	}
 	f, err := ff.format()
 	if err != nil {
@@ -69,8 +70,8 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	if dev == "" {
 		dev = idFromPath(path)
 	}
-	if !validID.MatchString(dev) {
-		return usagef("--id %q: use 1–64 of A–Z a–z 0–9 _ . -", dev)
+	if err := publish.CheckDevice(dev); err != nil {
+		return usagef("--id: %w", err)
 	}
 	log := newLogger(stderr, lvl)
 	var src io.ReadCloser
@@ -91,8 +92,8 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		}
 		src = rec
 	}
-	var mc mqttConfig
-	var ec embeddedConfig
+	var mc config.MQTT
+	var ec config.Embedded
 	var stateDir string
 	mf.apply(&mc, &ec, &stateDir)
 	sess, err := startMQTT(mc, ec, stateDir, log)
@@ -120,16 +121,16 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 	if fs.NArg() > 0 {
 		return usagef("run takes no arguments besides flags; got %q", fs.Args())
 	}
-	cfg, err := loadConfig(*path)
+	cfg, err := config.Load(*path)
 	if err != nil {
 		return err
 	}
 	if *level != "" {
 		cfg.LogLevel = *level
 	}
-	lvl, err := parseLevel(cfg.LogLevel)
+	lvl, err := config.ParseLevel(cfg.LogLevel)
 	if err != nil {
-		return usagef("%v", err)
+		return usagef("%w", err)
 	}
 	if *every > 0 {
 		cfg.ReportEvery = *every
@@ -152,8 +153,8 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 			closeAll()
 			return fmt.Errorf("device %s: %w", d.ID, err)
 		}
-		runs = append(runs, deviceRun{id: d.ID, src: src, format: d.Format.format(),
-			mechanics: d.mechanics, rules: d.rules,
+		runs = append(runs, deviceRun{id: d.ID, src: src, format: d.Format.Lines(),
+			mechanics: d.Mechanics(), rules: d.MergedRules(),
 			live: d.File == nil || d.File.Speed > 0})
 	}
 	mf.apply(&cfg.MQTT, &cfg.Embedded, &cfg.StateDir)
@@ -169,7 +170,7 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 
 // openSource opens a device's byte source, wrapped in a recorder when the
 // device records.
-func openSource(d *deviceConfig, log zerolog.Logger) (io.ReadCloser, error) {
+func openSource(d *config.Device, log zerolog.Logger) (io.ReadCloser, error) {
 	var src io.ReadCloser
 	switch {
 	case d.Serial != nil:
@@ -189,14 +190,14 @@ func openSource(d *deviceConfig, log zerolog.Logger) (io.ReadCloser, error) {
 		if speed == 0 {
 			speed = 1
 		}
-		src = device.NewSim(d.Sim.scenario, device.SimFormat{Delimiter: ',', Header: true}, speed, nil)
+		src = device.NewSim(d.Sim.Loaded(), device.SimFormat{Delimiter: ',', Header: true}, speed, nil)
 	default:
 		src = device.Stdin()
 	}
 	if d.Record == nil {
 		return src, nil
 	}
-	f := d.Format.format()
+	f := d.Format.Lines()
 	rec, err := device.NewRecorder(src, device.RecordConfig{Dir: d.Record.Dir, Name: d.ID,
 		MaxBytes: d.Record.MaxMiB << 20, ClockEvery: d.Record.ClockEvery, Header: f.Directive}, log)
 	if err != nil {
@@ -258,21 +259,21 @@ func cmdCheck(args []string, stdout, stderr io.Writer) error {
 	if fs.NArg() != 1 {
 		return usagef("check takes one configuration file; got %d", fs.NArg())
 	}
-	cfg, err := loadConfig(fs.Arg(0))
+	cfg, err := config.Load(fs.Arg(0))
 	if err != nil {
 		return err
 	}
-	fmt.Fprintf(stdout, "%s is valid: %d device(s)\n", cfg.path, len(cfg.Devices))
+	fmt.Fprintf(stdout, "%s is valid: %d device(s)\n", cfg.Path(), len(cfg.Devices))
 	for _, d := range cfg.Devices {
-		format := strings.TrimSpace(strings.TrimPrefix(d.Format.format().Directive(), "breathd format"))
+		format := strings.TrimSpace(strings.TrimPrefix(d.Format.Lines().Directive(), "breathd format"))
 		if format == "" {
 			format = "detected from the stream"
 		}
 		fmt.Fprintf(stdout, "  %-16s %s; format %s", d.ID, describeSource(&d), format)
-		if m := d.mechanics; m.CircuitCompliance > 0 {
+		if m := d.Mechanics(); m.CircuitCompliance > 0 {
 			fmt.Fprintf(stdout, "; circuit %g mL/cmH2O", m.CircuitCompliance)
 		}
-		if m := d.mechanics; m.FlowDelayFixed {
+		if m := d.Mechanics(); m.FlowDelayFixed {
 			fmt.Fprintf(stdout, "; flow delay %g ms as configured", m.FlowDelay*1000)
 		}
 		if d.Record != nil {
@@ -283,7 +284,7 @@ func cmdCheck(args []string, stdout, stderr io.Writer) error {
 	return nil
 }
 
-func describeSource(d *deviceConfig) string {
+func describeSource(d *config.Device) string {
 	switch {
 	case d.Serial != nil:
 		s := d.Serial
@@ -301,7 +302,7 @@ func describeSource(d *deviceConfig) string {
 		}
 		return fmt.Sprintf("file %s at %g× speed", d.File.Path, d.File.Speed)
 	case d.Sim != nil:
-		return fmt.Sprintf("simulated patient %q from %s", d.Sim.scenario.Name, d.Sim.Scenario)
+		return fmt.Sprintf("simulated patient %q from %s", d.Sim.Loaded().Name, d.Sim.Scenario)
 	}
 	return "standard input"
 }

@@ -12,6 +12,7 @@ import (
 	"sync"
 	"time"
 
+	"breathd/cmd/breathd/internal/config"
 	"breathd/stream/broker"
 	"breathd/stream/publish"
 
@@ -39,13 +40,13 @@ func cmdWatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
-	var mc mqttConfig
+	var mc config.MQTT
 	cf.apply(&mc)
-	pw, err := mc.password()
+	pw, err := mc.Password()
 	if err != nil {
 		return err
 	}
-	dial := mc.dial(*url, pw)
+	dial := mc.Dial(*url, pw)
 	opts, err := dial.Options()
 	if err != nil {
 		return err

@@ -97,12 +97,48 @@ func (s *Settings) numeric() map[string]*float64 {
 	}
 }
 
-// Validate reports the first setting outside what the model handles.
+// PathError is a scenario setting the model cannot take, at its key path
+// in a scenario file: "settings", "c" or "timeline", 2.
+type PathError struct {
+	Path []any // string keys and int indices
+	Err  error
+}
+
+// Error is the key path and the problem, e.g. "settings.c: 0 out of range
+// (1…500)".
+func (e *PathError) Error() string {
+	var b strings.Builder
+	for i, p := range e.Path {
+		if k, ok := p.(int); ok {
+			fmt.Fprintf(&b, "[%d]", k)
+		} else if i > 0 {
+			fmt.Fprintf(&b, ".%v", p)
+		} else {
+			fmt.Fprint(&b, p)
+		}
+	}
+	return b.String() + ": " + e.Err.Error()
+}
+
+// Unwrap returns the problem.
+func (e *PathError) Unwrap() error { return e.Err }
+
+// keyErr puts key before the path of err, or makes err a PathError at key.
+func keyErr(key string, err error) error {
+	var pe *PathError
+	if errors.As(err, &pe) {
+		return &PathError{Path: append([]any{key}, pe.Path...), Err: pe.Err}
+	}
+	return &PathError{Path: []any{key}, Err: err}
+}
+
+// Validate reports the first setting outside what the model handles, as a
+// *PathError.
 func (s *Settings) Validate() error {
 	switch s.Mode {
 	case ModeVC, ModePC, ModePS:
 	default:
-		return fmt.Errorf("mode %q: want vc, pc or ps", s.Mode)
+		return keyErr("mode", fmt.Errorf("%q: want vc, pc or ps", s.Mode))
 	}
 	checks := []struct {
 		name     string
@@ -120,39 +156,39 @@ func (s *Settings) Validate() error {
 	}
 	for _, c := range checks {
 		if math.IsNaN(c.v) || c.v < c.min || c.v > c.max {
-			return fmt.Errorf("%s %g out of range (%g…%g)", c.name, c.v, c.min, c.max)
+			return keyErr(c.name, fmt.Errorf("%g out of range (%g…%g)", c.v, c.min, c.max))
 		}
 	}
 	if s.Mode != ModePS && (s.Ti <= 0 || s.Ti >= 60/s.RR) {
-		return fmt.Errorf("ti %g s must be above 0 and below the breath period %.2f s", s.Ti, 60/s.RR)
+		return keyErr("ti", fmt.Errorf("%g s must be above 0 and below the breath period %.2f s", s.Ti, 60/s.RR))
 	}
 	if s.Mode == ModeVC {
 		if s.VT < 20 || s.VT > 2500 {
-			return fmt.Errorf("vt %g mL out of range (20…2500)", s.VT)
+			return keyErr("vt", fmt.Errorf("%g mL out of range (20…2500)", s.VT))
 		}
 		if s.Pause >= s.Ti {
-			return fmt.Errorf("pause %g s must be shorter than ti %g s", s.Pause, s.Ti)
+			return keyErr("pause", fmt.Errorf("%g s must be shorter than ti %g s", s.Pause, s.Ti))
 		}
 		if s.Flow != "" && s.Flow != "constant" && s.Flow != "decelerating" {
-			return fmt.Errorf("flow %q: want constant or decelerating", s.Flow)
+			return keyErr("flow", fmt.Errorf("%q: want constant or decelerating", s.Flow))
 		}
 	} else if s.PInsp <= 0 || s.PInsp > 60 {
-		return fmt.Errorf("pinsp %g cmH2O out of range (above 0, up to 60)", s.PInsp)
+		return keyErr("pinsp", fmt.Errorf("%g cmH2O out of range (above 0, up to 60)", s.PInsp))
 	}
 	if (s.C2 > 0) != (s.R2 > 0) {
-		return errors.New("a second compartment needs both r2 and c2")
+		return keyErr("c2", errors.New("a second compartment needs both r2 and c2"))
 	}
 	if (s.ViscoC > 0) != (s.ViscoR > 0) {
-		return errors.New("viscoelastic tissue needs both visco_c and visco_r")
+		return keyErr("visco_c", errors.New("viscoelastic tissue needs both visco_c and visco_r"))
 	}
 	if s.CardiacP > 0 && s.CardiacRate <= 0 {
-		return errors.New("cardiac_p needs cardiac_rate")
+		return keyErr("cardiac_rate", errors.New("cardiac_p needs cardiac_rate"))
 	}
 	if s.EffortRate > 0 && (s.EffortP <= 0 || s.EffortTime <= 0) {
-		return errors.New("effort_rate needs effort_p and effort_time")
+		return keyErr("effort_p", errors.New("effort_rate needs effort_p and effort_time"))
 	}
 	if s.EffortRate > 0 && s.EffortTime >= 60/s.EffortRate {
-		return fmt.Errorf("effort_time %g s must be shorter than the effort period %.2f s", s.EffortTime, 60/s.EffortRate)
+		return keyErr("effort_time", fmt.Errorf("%g s must be shorter than the effort period %.2f s", s.EffortTime, 60/s.EffortRate))
 	}
 	return nil
 }
@@ -229,43 +265,43 @@ func (sc *Scenario) Defaults() {
 // Validate checks the scenario and every point of its timeline.
 func (sc *Scenario) Validate() error {
 	if sc.RateHz < 10 || sc.RateHz > 1000 {
-		return fmt.Errorf("rate_hz %g out of range (10…1000)", sc.RateHz)
+		return keyErr("rate_hz", fmt.Errorf("%g out of range (10…1000)", sc.RateHz))
 	}
 	if sc.Duration < 0 {
-		return errors.New("duration is negative")
+		return keyErr("duration", errors.New("negative"))
 	}
 	if sc.Sensor.PawNoise < 0 || sc.Sensor.FlowNoise < 0 || sc.Sensor.Digits < 0 || sc.Sensor.Digits > 6 {
-		return errors.New("sensor: noise must not be negative, digits 0…6")
+		return keyErr("sensor", errors.New("noise must not be negative, digits 0…6"))
 	}
 	for _, v := range []float64{sc.Sensor.PawLag, sc.Sensor.FlowLag, sc.Sensor.FlowDelay, sc.Sensor.PawDelay} {
 		if math.IsNaN(v) || v < 0 || v > 0.2 {
-			return errors.New("sensor: lags and delays must be 0…0.2 s")
+			return keyErr("sensor", errors.New("lags and delays must be 0…0.2 s"))
 		}
 	}
 	if sc.Patient.Sex != "" || sc.Patient.HeightCm != 0 {
 		if _, err := mechanics.PredictedBodyWeight(sc.Patient.Sex, sc.Patient.HeightCm); err != nil {
-			return fmt.Errorf("patient: %w", err)
+			return keyErr("patient", err)
 		}
 	}
 	if err := sc.Settings.Validate(); err != nil {
-		return fmt.Errorf("settings: %w", err)
+		return keyErr("settings", err)
 	}
 	if !sort.SliceIsSorted(sc.Timeline, func(i, j int) bool { return sc.Timeline[i].At < sc.Timeline[j].At }) {
-		return errors.New("timeline: changes must be in order of at")
+		return keyErr("timeline", errors.New("changes must be in order of at"))
 	}
 	probe := *sc
 	for i, ch := range sc.Timeline {
 		if ch.At < 0 || ch.Ramp < 0 || ch.Disconnect < 0 {
-			return fmt.Errorf("timeline[%d]: negative time", i)
+			return &PathError{Path: []any{"timeline", i}, Err: errors.New("negative time")}
 		}
 		for k := range ch.Set {
 			if _, ok := probe.Settings.numeric()[k]; !ok {
-				return fmt.Errorf("timeline[%d]: unknown setting %q (one of %s)", i, k, settingNames())
+				return &PathError{Path: []any{"timeline", i, "set", k}, Err: fmt.Errorf("unknown setting (one of %s)", settingNames())}
 			}
 		}
 		probe.Settings = sc.settingsAt(ch.At + ch.Ramp)
 		if err := probe.Settings.Validate(); err != nil {
-			return fmt.Errorf("timeline[%d] (at %v): %w", i, ch.At, err)
+			return &PathError{Path: []any{"timeline", i}, Err: fmt.Errorf("the settings from %v: %w", ch.At, err)}
 		}
 	}
 	return nil

@@ -1,7 +1,9 @@
 package lungsim
 
 import (
+	"errors"
 	"math"
+	"strings"
 	"testing"
 	"time"
 
@@ -217,24 +219,32 @@ func TestTimelineRampAndDisconnect(t *testing.T) {
 	}
 }
 
+// TestScenarioValidate: every setting the model cannot take is refused
+// as a *PathError at its key path in the scenario file. Common practice,
+// no source.
 func TestScenarioValidate(t *testing.T) {
-	bad := []func(*Scenario){
-		func(s *Scenario) { s.Settings.Mode = "hfov" },
-		func(s *Scenario) { s.Settings.C = 0 },
-		func(s *Scenario) { s.Settings.Ti = 5 },
-		func(s *Scenario) { s.Settings.Pause = 2 },
-		func(s *Scenario) { s.RateHz = 5 },
-		func(s *Scenario) { s.Timeline = []Change{{At: time.Minute, Set: map[string]float64{"compliance": 3}}} },
-		func(s *Scenario) { s.Timeline = []Change{{At: time.Minute, Set: map[string]float64{"c": -3}}} },
-		func(s *Scenario) { s.Timeline = []Change{{At: 2 * time.Minute}, {At: time.Minute}} },
-		func(s *Scenario) { s.Patient = mechanics.Patient{Sex: "x", HeightCm: 170} },
+	bad := []struct {
+		f    func(*Scenario)
+		path string
+	}{
+		{func(s *Scenario) { s.Settings.Mode = "hfov" }, "settings.mode"},
+		{func(s *Scenario) { s.Settings.C = 0 }, "settings.c"},
+		{func(s *Scenario) { s.Settings.Ti = 5 }, "settings.ti"},
+		{func(s *Scenario) { s.Settings.Pause = 2 }, "settings.pause"},
+		{func(s *Scenario) { s.RateHz = 5 }, "rate_hz"},
+		{func(s *Scenario) { s.Timeline = []Change{{At: time.Minute, Set: map[string]float64{"compliance": 3}}} }, "timeline[0].set.compliance"},
+		{func(s *Scenario) { s.Timeline = []Change{{At: time.Minute, Set: map[string]float64{"c": -3}}} }, "timeline[0]"},
+		{func(s *Scenario) { s.Timeline = []Change{{At: 2 * time.Minute}, {At: time.Minute}} }, "timeline"},
+		{func(s *Scenario) { s.Patient = mechanics.Patient{Sex: "x", HeightCm: 170} }, "patient"},
 	}
-	for i, f := range bad {
+	for i, c := range bad {
 		sc := passive(ModeVC)
-		f(&sc)
+		c.f(&sc)
 		sc.Defaults()
-		if sc.Validate() == nil {
-			t.Errorf("case %d accepted", i)
+		err := sc.Validate()
+		var pe *PathError
+		if !errors.As(err, &pe) || !strings.HasPrefix(err.Error(), c.path+": ") {
+			t.Errorf("case %d: %v, want a PathError at %s", i, err, c.path)
 		}
 	}
 }

@@ -52,8 +52,14 @@ func ValidateTopicParts(root, device string) error {
 	if !validRoot.MatchString(root) || len(root) > 128 {
 		return fmt.Errorf("topic root %q: use segments of A–Z a–z 0–9 _ . - separated by /", root)
 	}
-	if !validDevice.MatchString(device) {
-		return fmt.Errorf("device id %q: use 1–64 of A–Z a–z 0–9 _ . -", device)
+	return CheckDevice(device)
+}
+
+// CheckDevice checks a device id: 1–64 of A–Z a–z 0–9 _ . -, so that it is
+// one topic level and a file name.
+func CheckDevice(id string) error {
+	if !validDevice.MatchString(id) {
+		return fmt.Errorf("device id %q: use 1–64 of A–Z a–z 0–9 _ . -", id)
 	}
 	return nil
 }

@@ -1,4 +1,4 @@
-package main
+package config
 
 import (
 	"os"
@@ -12,12 +12,12 @@ import (
 // FuzzConfig: no configuration text panics the loader, and every error
 // names the file.
 func FuzzConfig(f *testing.F) {
-	example, _ := os.ReadFile("../../configs/breathd.example.yaml")
+	example, _ := os.ReadFile("../../../../configs/breathd.example.yaml")
 	f.Add(string(example))
 	f.Add("devices:\n  - id: a\n    stdin: true\n")
 	f.Add("devices: [{id: x, serial: {path: /dev/x, baud: 9600}}]\n")
 	f.Fuzz(func(t *testing.T, text string) {
-		_, err := parseConfig("fuzz.yaml", []byte(text))
+		_, err := Parse("fuzz.yaml", []byte(text))
 		if err != nil && !strings.HasPrefix(err.Error(), "fuzz.yaml") {
 			t.Fatalf("error without the file name: %v", err)
 		}
@@ -27,7 +27,7 @@ func FuzzConfig(f *testing.F) {
 // FuzzScenario: no scenario text panics the loader, and a scenario it
 // accepts simulates without panicking.
 func FuzzScenario(f *testing.F) {
-	files, _ := filepath.Glob("../../configs/scenarios/*.yaml")
+	files, _ := filepath.Glob("../../../../configs/scenarios/*.yaml")
 	for _, p := range files {
 		b, _ := os.ReadFile(p)
 		f.Add(string(b))
