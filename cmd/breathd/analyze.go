@@ -9,7 +9,6 @@ import (
 	"math"
 	"math/rand/v2"
 	"os"
-	"path/filepath"
 	"runtime"
 	"slices"
 	"strings"
@@ -17,6 +16,7 @@ import (
 
 	"breathd/alerts"
 	"breathd/cmd/breathd/internal/config"
+	"breathd/cmd/breathd/internal/plot"
 	"breathd/device"
 	"breathd/mechanics"
 	"breathd/stream"
@@ -53,6 +53,14 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	if err != nil {
 		return err
 	}
+	if *plotPath != "" {
+		if path == "-" {
+			return usagef("--plot needs a file, not stdin: it reads the strip again")
+		}
+		if err := plot.Check(*plotPath, *plotSpan); err != nil {
+			return usagef("--plot: %w", err)
+		}
+	}
 	var src io.ReadCloser
 	var file *device.File
 	if path == "-" {
@@ -81,21 +89,9 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	} else if w != nil {
 		sinks = append(sinks, &eventLines{w: w})
 	}
-	var pd *plotData
+	var pd *plot.Data
 	if *plotPath != "" {
-		if path == "-" {
-			src.Close()
-			return usagef("--plot needs a file, not stdin: it reads the strip again")
-		}
-		if ext := strings.ToLower(filepath.Ext(*plotPath)); ext != ".png" && ext != ".svg" {
-			src.Close()
-			return usagef("--plot %s: the picture is .png or .svg", *plotPath)
-		}
-		if *plotSpan <= 0 || *plotSpan > 3600 {
-			src.Close()
-			return usagef("--plot-span %g: want 0 < span ≤ 3600 s", *plotSpan)
-		}
-		pd = &plotData{}
+		pd = &plot.Data{}
 		sinks = append(sinks, pd)
 	}
 	stopBar := showProgress(file, stderr)
@@ -113,8 +109,8 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	}
 	sum.print(stderr, st, time.Since(start))
 	if pd != nil && runErr == nil {
-		if err := writePlot(*plotPath, path, f, *plotFrom, *plotSpan, pd); err != nil {
-			return err
+		if err := plot.Write(*plotPath, path, f, *plotFrom, *plotSpan, pd); err != nil {
+			return fmt.Errorf("--plot: %w", err)
 		}
 		fmt.Fprintf(stderr, "  picture: %s\n", *plotPath)
 	}

@@ -1,4 +1,8 @@
-package main
+// Package plot draws a recording for analyze --plot: a strip of pressure,
+// flow and volume with each breath's marks, and the trends of compliance,
+// resistance, driving pressure and mechanical power with the rules
+// raised, as PNG or SVG (gonum/plot).
+package plot
 
 import (
 	"errors"
@@ -15,7 +19,7 @@ import (
 	"breathd/mechanics"
 	"breathd/stream/lines"
 
-	"gonum.org/v1/plot"
+	gonum "gonum.org/v1/plot"
 	"gonum.org/v1/plot/plotter"
 	"gonum.org/v1/plot/vg"
 	"gonum.org/v1/plot/vg/draw"
@@ -37,17 +41,38 @@ var (
 	}
 )
 
-// plotData collects what the picture needs while analyze runs.
-type plotData struct {
+// Data collects what the picture needs while the recording is analysed:
+// it is a sink of the device loop.
+type Data struct {
 	breaths []mechanics.Breath
 	events  []alerts.Event
 }
 
-func (p *plotData) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
+// Breath keeps a copy of the breath.
+func (p *Data) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
 	p.breaths = append(p.breaths, *b)
 }
 
-func (p *plotData) Event(ev *alerts.Event, _ []alerts.Active) { p.events = append(p.events, *ev) }
+// Event keeps a copy of the event.
+func (p *Data) Event(ev *alerts.Event, _ []alerts.Active) { p.events = append(p.events, *ev) }
+
+// ErrKind is returned for a picture that is not .png or .svg.
+var ErrKind = errors.New("the picture is .png or .svg")
+
+// MaxSpan is the longest strip, s.
+const MaxSpan = 3600
+
+// Check validates the picture's name and the strip's length before any
+// work is done.
+func Check(out string, span float64) error {
+	if ext := strings.ToLower(filepath.Ext(out)); ext != ".png" && ext != ".svg" {
+		return fmt.Errorf("%s: %w", out, ErrKind)
+	}
+	if span <= 0 || span > MaxSpan {
+		return fmt.Errorf("strip of %g s: want 0 < span ≤ %d s", span, MaxSpan)
+	}
+	return nil
+}
 
 // strip holds the samples of the chosen time range.
 type strip struct {
@@ -121,8 +146,8 @@ func xys(x, y []float64) plotter.XYs {
 	return pts
 }
 
-func newPanel(title, ylabel string) *plot.Plot {
-	p := plot.New()
+func newPanel(title, ylabel string) *gonum.Plot {
+	p := gonum.New()
 	p.Title.Text = title
 	p.Title.TextStyle.Font.Size = vg.Points(10)
 	p.Title.Padding = vg.Points(2)
@@ -137,7 +162,7 @@ func newPanel(title, ylabel string) *plot.Plot {
 	return p
 }
 
-func addLine(p *plot.Plot, pts plotter.XYs, c color.Color, width vg.Length) {
+func addLine(p *gonum.Plot, pts plotter.XYs, c color.Color, width vg.Length) {
 	if len(pts) == 0 {
 		return
 	}
@@ -146,7 +171,7 @@ func addLine(p *plot.Plot, pts plotter.XYs, c color.Color, width vg.Length) {
 	p.Add(l)
 }
 
-func addMarks(p *plot.Plot, pts plotter.XYs, c color.Color, shape draw.GlyphDrawer, label string) {
+func addMarks(p *gonum.Plot, pts plotter.XYs, c color.Color, shape draw.GlyphDrawer, label string) {
 	if len(pts) == 0 {
 		return
 	}
@@ -156,17 +181,24 @@ func addMarks(p *plot.Plot, pts plotter.XYs, c color.Color, shape draw.GlyphDraw
 	p.Legend.Add(label, s)
 }
 
-// writePlot draws the strip and the trend panels and writes a PNG or SVG
-// by the file's extension.
-func writePlot(out, path string, f lines.Format, from, span float64, d *plotData) error {
-	ext := strings.ToLower(filepath.Ext(out))
-	if ext != ".png" && ext != ".svg" {
-		return usagef("--plot %s: the picture is .png or .svg", out)
+// Write draws the strip [from, from+span) of the recording at path
+// (decoded with f) above the trend panels, and writes out, a PNG or SVG by
+// its extension.
+func Write(out, path string, f lines.Format, from, span float64, d *Data) error {
+	if err := Check(out, span); err != nil {
+		return err
 	}
 	st, err := readStrip(path, f, from, span, d.breaths)
 	if err != nil {
-		return fmt.Errorf("--plot: %w", err)
+		return err
 	}
+	rows := append(stripPanels(st, from, span, d.breaths), trendPanels(d)...)
+	return render(out, rows)
+}
+
+// stripPanels are pressure (with each breath's start, peak, plateau and
+// PEEP marked), flow and volume over the strip.
+func stripPanels(st *strip, from, span float64, breaths []mechanics.Breath) []*gonum.Plot {
 	pres := newPanel(fmt.Sprintf("Airway pressure, %.0f–%.0f s", from, from+span), "cmH2O")
 	flow := newPanel("Flow (into the patient > 0)", "L/min")
 	vol := newPanel("Volume since the breath's start", "mL")
@@ -174,7 +206,7 @@ func writePlot(out, path string, f lines.Format, from, span float64, d *plotData
 	addLine(flow, xys(st.t, st.flow), colFlow, vg.Points(1))
 	addLine(vol, xys(st.t, st.vol), colVolume, vg.Points(1))
 	var starts, peaks, plats, peeps plotter.XYs
-	for _, b := range d.breaths {
+	for _, b := range breaths {
 		if b.TStart < from || b.TStart >= from+span {
 			continue
 		}
@@ -187,7 +219,7 @@ func writePlot(out, path string, f lines.Format, from, span float64, d *plotData
 			peeps = append(peeps, plotter.XY{X: b.TEnd - 0.1, Y: b.PEEP})
 		}
 	}
-	for _, p := range []*plot.Plot{pres, flow, vol} {
+	for _, p := range []*gonum.Plot{pres, flow, vol} {
 		p.X.Min, p.X.Max = from, from+span
 	}
 	addMarks(pres, starts, colMark, draw.TriangleGlyph{}, "start")
@@ -195,8 +227,15 @@ func writePlot(out, path string, f lines.Format, from, span float64, d *plotData
 	addMarks(pres, plats, colFlow, draw.BoxGlyph{}, "plateau")
 	addMarks(pres, peeps, colVolume, draw.CrossGlyph{}, "PEEP")
 	pres.Legend.Top, pres.Legend.TextStyle.Font.Size = true, vg.Points(7)
+	vol.X.Label.Text = "s"
+	return []*gonum.Plot{pres, flow, vol}
+}
 
-	trend := func(title, unit string, get func(b *mechanics.Breath) float64) *plot.Plot {
+// trendPanels are compliance (static, and fitted where reliable),
+// resistance, driving pressure and mechanical power over the whole
+// recording, with each raised rule marked.
+func trendPanels(d *Data) []*gonum.Plot {
+	trend := func(title, unit string, get func(b *mechanics.Breath) float64) *gonum.Plot {
 		p := newPanel(title, unit)
 		x := make([]float64, len(d.breaths))
 		y := make([]float64, len(d.breaths))
@@ -227,43 +266,46 @@ func writePlot(out, path string, f lines.Format, from, span float64, d *plotData
 	dp := trend("Driving pressure", "cmH2O", func(b *mechanics.Breath) float64 { return b.DP })
 	mp := trend("Mechanical power", "J/min", func(b *mechanics.Breath) float64 { return b.MP })
 	mp.X.Label.Text = "minutes of recording; vertical marks: rule raised (colour by level)"
-	for _, p := range []*plot.Plot{comp, res, dp, mp} {
+	rows := []*gonum.Plot{comp, res, dp, mp}
+	for _, p := range rows {
 		markEvents(p, d.events)
 	}
-	vol.X.Label.Text = "s"
+	return rows
+}
 
-	rows := []*plot.Plot{pres, flow, vol, comp, res, dp, mp}
+// render lays the panels out in one column and writes the picture.
+func render(out string, rows []*gonum.Plot) error {
 	const width, height = 7.5 * vg.Inch, 12 * vg.Inch
 	var canvas vg.CanvasWriterTo
-	if ext == ".svg" {
+	if strings.ToLower(filepath.Ext(out)) == ".svg" {
 		canvas = vgsvg.New(width, height)
 	} else {
 		canvas = vgimg.PngCanvas{Canvas: vgimg.NewWith(vgimg.UseWH(width, height), vgimg.UseDPI(90))}
 	}
 	dc := draw.New(canvas)
-	grid := make([][]*plot.Plot, len(rows))
+	grid := make([][]*gonum.Plot, len(rows))
 	for i, p := range rows {
-		grid[i] = []*plot.Plot{p}
+		grid[i] = []*gonum.Plot{p}
 	}
 	tiles := draw.Tiles{Rows: len(rows), Cols: 1, PadX: vg.Millimeter, PadY: 3 * vg.Millimeter,
 		PadTop: 4 * vg.Millimeter, PadBottom: 2 * vg.Millimeter, PadLeft: 2 * vg.Millimeter, PadRight: 4 * vg.Millimeter}
-	for i, c := range plot.Align(grid, tiles, dc) {
+	for i, c := range gonum.Align(grid, tiles, dc) {
 		rows[i].Draw(c[0])
 	}
 	file, err := os.Create(out)
 	if err != nil {
-		return fmt.Errorf("--plot: %w", err)
+		return err
 	}
 	if _, err := canvas.WriteTo(file); err != nil {
 		file.Close()
-		return fmt.Errorf("--plot: %w", err)
+		return err
 	}
 	return file.Close()
 }
 
 // markEvents draws a vertical mark at each raised event, coloured by its
 // level, across the panel's data range.
-func markEvents(p *plot.Plot, events []alerts.Event) {
+func markEvents(p *gonum.Plot, events []alerts.Event) {
 	lo, hi := p.Y.Min, p.Y.Max
 	if lo >= hi {
 		return
