@@ -7,15 +7,25 @@ var nan = math.NaN()
 // compute fills b from the buffer's samples [0, j); sample j is the next
 // breath's start.
 func (s *Segmenter) compute(b *Breath, j int) {
-	c := &s.cfg
-	t, paw, flow := s.t, s.paw, s.flow
+	t := s.t
 	e := s.expStart // first expiratory sample
 	*b = Breath{TStart: t[0], TEnd: t[j], Flags: 0}
 	b.Ti, b.Te = t[e]-t[0], t[j]-t[e]
 	b.RR = 60 / (b.TEnd - b.TStart)
 	b.IE = b.Te / b.Ti
 	s.measureNoise(e, j)
+	eefNoise := s.volumes(b, e, j)
+	lo, hi, level := s.pressures(b, e)
+	s.circuitAndLeak(b)
+	peepTotal := s.effort(b, e, j, eefNoise)
+	s.derived(b, e, j, peepTotal, lo, hi, level)
+}
 
+// volumes sets the inspired and expired volumes, the mean pressure, PEEP
+// and the end-expiratory flow (flagging an incomplete exhalation), and
+// returns the noise left in that flow's mean.
+func (s *Segmenter) volumes(b *Breath, e, j int) (eefNoise float64) {
+	t, paw, flow := s.t, s.paw, s.flow
 	// Volumes, mL: the trapezoid rule inside each phase; at the three
 	// switches (start, start of expiration, next start) the flow jumps at an
 	// unknown moment within the sample interval, so each side gets half an
@@ -52,17 +62,24 @@ func (s *Segmenter) compute(b *Breath, j int) {
 		ee--
 	}
 	b.EEF = mean(flow, ee, j)
-	eefNoise := 2.5 * s.noiseF() / math.Sqrt(float64(j-ee))
-	if b.EEF < -max(c.EEFLimit, eefNoise) {
+	eefNoise = 2.5 * s.noiseF() / math.Sqrt(float64(j-ee))
+	if b.EEF < -max(s.cfg.EEFLimit, eefNoise) {
 		b.Flags |= FlagIncompleteExhalation
 	}
+	return eefNoise
+}
 
+// pressures sets the peak and plateau pressures and the pause's decay, and
+// returns the part of the inflation whose flow is flat and its level (hi
+// < 0 when the flow is not constant).
+func (s *Segmenter) pressures(b *Breath, e int) (lo, hi int, level float64) {
+	t, paw := s.t, s.paw
 	// inspiratory flow: constant or not, the peak pressure
 	flowEnd := s.inspEnd
 	if flowEnd < 0 || flowEnd > e {
 		flowEnd = e
 	}
-	lo, hi, level := s.flatFlow(flowEnd)
+	lo, hi, level = s.flatFlow(flowEnd)
 	b.PPeak = smoothedMax(paw, 0, e)
 	if hi >= 0 {
 		// the pressure where constant flow stopped — half a sample interval
@@ -84,7 +101,13 @@ func (s *Segmenter) compute(b *Breath, j int) {
 	} else if !settled {
 		b.Flags |= FlagPlateauUnsettled
 	}
+	return lo, hi, level
+}
 
+// circuitAndLeak takes the circuit's compressed gas off the volumes and
+// sets the leak.
+func (s *Segmenter) circuitAndLeak(b *Breath) {
+	c := &s.cfg
 	// the circuit's compressed gas: Ccirc·(end-inspiratory pressure −
 	// PEEP) went into the circuit, not the lung, and comes back out of it
 	// (Bartel, Bazik & Powner, Crit Care Med 1985;13:851)
@@ -103,7 +126,12 @@ func (s *Segmenter) compute(b *Breath, j int) {
 			b.Flags |= FlagLeak
 		}
 	}
+}
 
+// effort fits the equation of motion, looks for the patient's effort,
+// judges the fit, and sets intrinsic PEEP; it returns total PEEP.
+func (s *Segmenter) effort(b *Breath, e, j int, eefNoise float64) (peepTotal float64) {
+	c := &s.cfg
 	s.fit(b, j, e)
 	if s.nextDip || s.patientStart(e) {
 		b.Flags |= FlagActiveEffort
@@ -125,12 +153,18 @@ func (s *Segmenter) compute(b *Breath, j int) {
 		r = nan
 	}
 	b.PEEPi = max(0, -b.EEF) / 60 * r
-	peepTotal := b.PEEP
+	peepTotal = b.PEEP
 	if b.PEEPi >= c.PEEPiMin && -b.EEF > eefNoise {
 		b.Flags |= FlagIntrinsicPEEP
 		peepTotal += b.PEEPi
 	}
+	return peepTotal
+}
 
+// derived sets the values computed from the others: driving pressure,
+// the compliances, inspiratory resistance, mechanical power, the stress
+// index and the volume per kg of predicted body weight.
+func (s *Segmenter) derived(b *Breath, e, j int, peepTotal float64, lo, hi int, level float64) {
 	b.DP, b.Cstat, b.Rinsp = nan, nan, nan
 	if !math.IsNaN(b.PPlat) {
 		b.DP = b.PPlat - peepTotal
@@ -162,10 +196,10 @@ func (s *Segmenter) compute(b *Breath, j int) {
 		// ripple of 6 % of the ramp's rise moved the index by up to 0.45,
 		// so one over 1.25 % leaves it unable to tell 1 from 0.9 (our
 		// choice, from the simulator; no source)
-		rippled := s.ripple(e, j) > 0.0125*(paw[hi]-paw[lo])
+		rippled := s.ripple(e, j) > 0.0125*(s.paw[hi]-s.paw[lo])
 		// a pressure that relaxes in the pause (pendelluft, stress
 		// relaxation) bends the ramp as a change of compliance would
-		relaxes := b.PauseDecay > max(c.PauseDecayLimit, 3*s.noiseP())
+		relaxes := b.PauseDecay > max(s.cfg.PauseDecayLimit, 3*s.noiseP())
 		if math.IsNaN(b.SI) || r2 < siR2Min || siUndecided(b.SI, se) || rippled || relaxes {
 			b.Flags |= FlagSIUnreliable
 		}

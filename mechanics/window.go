@@ -397,22 +397,8 @@ func partOf(v []float64, f Flags) part {
 // attribute compares the window's medians with the baseline's: the
 // breaths of the Baseline seconds before the window.
 func (w *Window) attribute(now float64, idx []int) Attribution {
-	winFrom := now - w.cfg.Span
-	baseFrom := winFrom - w.cfg.Baseline
+	w.refreshBaseline(now)
 	b := &w.base
-	if math.IsNaN(b.at) || now-b.at >= 300 || now < b.at {
-		b.at = now
-		var med [nPartFields]float64
-		var n [nPartFields]int
-		w.baseMedians(baseFrom, winFrom, &med, &n)
-		b.peak, b.nPeak = med[pkPeak], n[pkPeak]
-		b.res, b.nRes = med[pkRes], n[pkRes]
-		b.el = med[pkEl]
-		b.fres, b.nFres = med[pkFres], n[pkFres]
-		b.fel = med[pkFel]
-		b.cstat, b.nCstat = med[pkCstat], n[pkCstat]
-		b.fitC, b.nFit = med[pkFitC], n[pkFitC]
-	}
 	cur := &w.cur
 	cur.update(w.windowParts(idx))
 	w.trend.CChange = nan
@@ -427,6 +413,39 @@ func (w *Window) attribute(now float64, idx []int) Attribution {
 		return a
 	}
 	a.PeakRise = curPeak - b.peak
+	if !w.splitRise(&a) || a.PeakRise < w.cfg.RiseMin {
+		return a
+	}
+	a.Cause = riseCause(a.ResistiveRise, a.ElasticRise)
+	return a
+}
+
+// refreshBaseline recomputes the baseline's medians every 5 minutes of
+// stream time (and after time went back).
+func (w *Window) refreshBaseline(now float64) {
+	b := &w.base
+	if !math.IsNaN(b.at) && now-b.at < 300 && now >= b.at {
+		return
+	}
+	winFrom := now - w.cfg.Span
+	b.at = now
+	var med [nPartFields]float64
+	var n [nPartFields]int
+	w.baseMedians(winFrom-w.cfg.Baseline, winFrom, &med, &n)
+	b.peak, b.nPeak = med[pkPeak], n[pkPeak]
+	b.res, b.nRes = med[pkRes], n[pkRes]
+	b.el = med[pkEl]
+	b.fres, b.nFres = med[pkFres], n[pkFres]
+	b.fel = med[pkFel]
+	b.cstat, b.nCstat = med[pkCstat], n[pkCstat]
+	b.fitC, b.nFit = med[pkFitC], n[pkFitC]
+}
+
+// splitRise sets the resistive and elastic parts of the rise from the
+// plateau's numbers, else from the fit's; false when neither has three
+// breaths in the window and in the baseline.
+func (w *Window) splitRise(a *Attribution) bool {
+	b, cur := &w.base, &w.cur
 	a.Method = "plateau"
 	rc, n := cur.median(pkRes)
 	ec, _ := cur.median(pkEl)
@@ -438,24 +457,26 @@ func (w *Window) attribute(now float64, idx []int) Attribution {
 		rb, eb = b.fres, b.fel
 		if b.nFres < 3 || n < 3 {
 			a.Method = ""
-			return a
+			return false
 		}
 	}
 	a.ResistiveRise, a.ElasticRise = rc-rb, ec-eb
-	if a.PeakRise < w.cfg.RiseMin {
-		return a
-	}
-	r, e := math.Max(a.ResistiveRise, 0), math.Max(a.ElasticRise, 0)
+	return true
+}
+
+// riseCause names the larger part of a rise: 70 % or more of it.
+func riseCause(resistive, elastic float64) string {
+	r, e := math.Max(resistive, 0), math.Max(elastic, 0)
 	switch share := r / (r + e); {
 	case r+e == 0:
+		return RiseNone
 	case share >= 0.7:
-		a.Cause = RiseResistive
+		return RiseResistive
 	case share <= 0.3:
-		a.Cause = RiseElastic
+		return RiseElastic
 	default:
-		a.Cause = RiseBoth
+		return RiseBoth
 	}
-	return a
 }
 
 // sortSmall sorts x: by insertion for a window's few values (no call per

@@ -28,75 +28,31 @@ import (
 )
 
 func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := newFlags("analyze", "analyze [flags] FILE|-", stderr)
-	var ff formatFlags
-	ff.register(fs)
-	var pf mechanicsFlags
-	pf.register(fs)
-	csvPath := fs.String("csv", "", "write one row per breath as CSV to this file, or - for stdout")
-	eventsPath := fs.String("events", "", "write the rule events as JSON lines to this file, or - for stdout")
-	plotPath := fs.String("plot", "", "draw the recording to this .png or .svg: a pressure/flow/volume strip and the trends")
-	plotFrom := fs.Float64("plot-from", 0, "start of the strip, s of stream time")
-	plotSpan := fs.Float64("plot-span", 30, "length of the strip, s")
-	if err := parseFlags(fs, args); err != nil {
-		return err
-	}
-	if fs.NArg() != 1 {
-		return usagef("analyze takes one recording (a file, or - for stdin); got %d", fs.NArg())
-	}
-	path := fs.Arg(0)
-	f, err := ff.format()
+	o, err := parseAnalyze(args, stderr)
 	if err != nil {
 		return err
-	}
-	mcfg, err := pf.config()
-	if err != nil {
-		return err
-	}
-	if *plotPath != "" {
-		if path == "-" {
-			return usagef("--plot needs a file, not stdin: it reads the strip again")
-		}
-		if err := plot.Check(*plotPath, *plotSpan); err != nil {
-			return usagef("--plot: %w", err)
-		}
 	}
 	var src io.ReadCloser
 	var file *device.File
-	if path == "-" {
+	if o.path == "-" {
 		src = device.Stdin()
 	} else {
-		if file, err = device.OpenFile(path, 0); err != nil {
+		if file, err = device.OpenFile(o.path, 0); err != nil {
 			return err
 		}
 		src = file
 	}
-	sum := newSummary()
-	sinks := stream.Sinks{sum}
 	var outs outputs
 	defer outs.closeAll()
-	var csv *payload.CSVWriter
-	if w, err := outs.open("--csv", *csvPath, stdout); err != nil {
+	sum := newSummary()
+	sinks, csv, pd, err := o.sinks(sum, &outs, stdout)
+	if err != nil {
 		src.Close()
 		return err
-	} else if w != nil {
-		csv = payload.NewCSVWriter(w)
-		sinks = append(sinks, csv)
-	}
-	if w, err := outs.open("--events", *eventsPath, stdout); err != nil {
-		src.Close()
-		return err
-	} else if w != nil {
-		sinks = append(sinks, &eventLines{w: w})
-	}
-	var pd *plot.Data
-	if *plotPath != "" {
-		pd = &plot.Data{}
-		sinks = append(sinks, pd)
 	}
 	stopBar := showProgress(file, stderr)
 	start := time.Now()
-	st, runErr := stream.Run(ctx, src, stream.Config{Device: idFromPath(path), Format: f, Mechanics: mcfg,
+	st, runErr := stream.Run(ctx, src, stream.Config{Device: idFromPath(o.path), Format: o.format, Mechanics: o.mechanics,
 		Rules: alerts.Defaults(), Sink: sinks, Ahead: runtime.NumCPU() > 1})
 	stopBar()
 	if csv != nil {
@@ -109,12 +65,81 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	}
 	sum.print(stderr, st, time.Since(start))
 	if pd != nil && runErr == nil {
-		if err := plot.Write(*plotPath, path, f, *plotFrom, *plotSpan, pd); err != nil {
+		if err := plot.Write(o.plot, o.path, o.format, o.plotFrom, o.plotSpan, pd); err != nil {
 			return fmt.Errorf("--plot: %w", err)
 		}
-		fmt.Fprintf(stderr, "  picture: %s\n", *plotPath)
+		fmt.Fprintf(stderr, "  picture: %s\n", o.plot)
 	}
 	return runErr
+}
+
+// analyzeOptions are analyze's flags, checked.
+type analyzeOptions struct {
+	path              string // the recording, or - for stdin
+	format            lines.Format
+	mechanics         mechanics.Config
+	csv, events, plot string // outputs: a path, - for stdout, or "" for none
+	plotFrom          float64
+	plotSpan          float64
+}
+
+// parseAnalyze reads and checks every flag before anything is opened.
+func parseAnalyze(args []string, stderr io.Writer) (o analyzeOptions, err error) {
+	fs := newFlags("analyze", "analyze [flags] FILE|-", stderr)
+	var ff formatFlags
+	ff.register(fs)
+	var pf mechanicsFlags
+	pf.register(fs)
+	fs.StringVar(&o.csv, "csv", "", "write one row per breath as CSV to this file, or - for stdout")
+	fs.StringVar(&o.events, "events", "", "write the rule events as JSON lines to this file, or - for stdout")
+	fs.StringVar(&o.plot, "plot", "", "draw the recording to this .png or .svg: a pressure/flow/volume strip and the trends")
+	fs.Float64Var(&o.plotFrom, "plot-from", 0, "start of the strip, s of stream time")
+	fs.Float64Var(&o.plotSpan, "plot-span", 30, "length of the strip, s")
+	if err := parseFlags(fs, args); err != nil {
+		return o, err
+	}
+	if fs.NArg() != 1 {
+		return o, usagef("analyze takes one recording (a file, or - for stdin); got %d", fs.NArg())
+	}
+	o.path = fs.Arg(0)
+	if o.format, err = ff.format(); err != nil {
+		return o, err
+	}
+	if o.mechanics, err = pf.config(); err != nil {
+		return o, err
+	}
+	if o.plot != "" {
+		if o.path == "-" {
+			return o, usagef("--plot needs a file, not stdin: it reads the strip again")
+		}
+		if err := plot.Check(o.plot, o.plotSpan); err != nil {
+			return o, usagef("--plot: %w", err)
+		}
+	}
+	return o, nil
+}
+
+// sinks opens the outputs asked for and returns the sinks to run with.
+func (o *analyzeOptions) sinks(sum *summary, outs *outputs, stdout io.Writer) (stream.Sinks, *payload.CSVWriter, *plot.Data, error) {
+	sinks := stream.Sinks{sum}
+	var csv *payload.CSVWriter
+	if w, err := outs.open("--csv", o.csv, stdout); err != nil {
+		return nil, nil, nil, err
+	} else if w != nil {
+		csv = payload.NewCSVWriter(w)
+		sinks = append(sinks, csv)
+	}
+	if w, err := outs.open("--events", o.events, stdout); err != nil {
+		return nil, nil, nil, err
+	} else if w != nil {
+		sinks = append(sinks, &eventLines{w: w})
+	}
+	var pd *plot.Data
+	if o.plot != "" {
+		pd = &plot.Data{}
+		sinks = append(sinks, pd)
+	}
+	return sinks, csv, pd, nil
 }
 
 // outputs are the files analyze writes: a path, "-" for stdout, or ""

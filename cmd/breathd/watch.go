@@ -53,46 +53,11 @@ func cmdWatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	}
 	opts.SetClientID(fmt.Sprintf("breathd-watch-%d", os.Getpid())).SetCleanSession(true).SetOrderMatters(false).
 		SetAutoReconnect(true).SetMaxReconnectInterval(5 * time.Second)
-	var mu sync.Mutex
-	devices := map[string]*deviceView{}
-	tty := !*plain
+	v := &watcher{root: *root, only: *only, out: stdout, devices: map[string]*deviceView{}, tty: !*plain}
 	if f, ok := stdout.(*os.File); !ok || !isatty.IsTerminal(f.Fd()) {
-		tty = false
+		v.tty = false
 	}
-	handle := func(_ paho.Client, m paho.Message) {
-		parts := strings.Split(strings.TrimPrefix(m.Topic(), *root+"/"), "/")
-		if len(parts) != 2 || (*only != "" && parts[0] != *only) {
-			return
-		}
-		var p map[string]any
-		if json.Unmarshal(m.Payload(), &p) != nil {
-			return
-		}
-		mu.Lock()
-		defer mu.Unlock()
-		d := devices[parts[0]]
-		if d == nil {
-			d = &deviceView{}
-			devices[parts[0]] = d
-		}
-		d.seen = time.Now()
-		switch parts[1] {
-		case "breath":
-			d.breath = p
-		case "trend":
-			d.trend = p
-		case "active":
-			d.active, _ = p["active"].([]any)
-		case "status":
-			d.status = p
-		}
-		if !tty {
-			if line := watchLine(parts[0], parts[1], p); line != "" {
-				fmt.Fprintln(stdout, line)
-			}
-		}
-	}
-	opts.SetOnConnectHandler(func(c paho.Client) { c.Subscribe(*root+"/+/+", 0, handle) })
+	opts.SetOnConnectHandler(func(c paho.Client) { c.Subscribe(*root+"/+/+", 0, v.handle) })
 	client := paho.NewClient(opts)
 	if tok := client.Connect(); !tok.WaitTimeout(6*time.Second) || tok.Error() != nil {
 		if dial.Refused(tok.Error()) {
@@ -102,17 +67,67 @@ func cmdWatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 			publish.Redact(*url), publish.ErrText(tok.Error()), broker.DefaultListen)
 	}
 	defer client.Disconnect(100)
-	if !tty {
+	if !v.tty {
 		<-ctx.Done()
 		return nil
 	}
+	return v.redraw(ctx)
+}
+
+// watcher keeps the latest of each device's topics.
+type watcher struct {
+	root, only string
+	out        io.Writer
+	tty        bool // redraw the screen; else print a line per message
+
+	mu      sync.Mutex
+	devices map[string]*deviceView
+}
+
+// handle takes one message of <root>/<device>/<kind>.
+func (v *watcher) handle(_ paho.Client, m paho.Message) {
+	parts := strings.Split(strings.TrimPrefix(m.Topic(), v.root+"/"), "/")
+	if len(parts) != 2 || (v.only != "" && parts[0] != v.only) {
+		return
+	}
+	var p map[string]any
+	if json.Unmarshal(m.Payload(), &p) != nil {
+		return
+	}
+	v.mu.Lock()
+	defer v.mu.Unlock()
+	d := v.devices[parts[0]]
+	if d == nil {
+		d = &deviceView{}
+		v.devices[parts[0]] = d
+	}
+	d.seen = time.Now()
+	switch parts[1] {
+	case "breath":
+		d.breath = p
+	case "trend":
+		d.trend = p
+	case "active":
+		d.active, _ = p["active"].([]any)
+	case "status":
+		d.status = p
+	}
+	if !v.tty {
+		if line := watchLine(parts[0], parts[1], p); line != "" {
+			fmt.Fprintln(v.out, line)
+		}
+	}
+}
+
+// redraw draws the screen every second until ctx ends.
+func (v *watcher) redraw(ctx context.Context) error {
 	tick := time.NewTicker(time.Second)
 	defer tick.Stop()
 	for {
-		mu.Lock()
-		screen := renderWatch(devices)
-		mu.Unlock()
-		fmt.Fprint(stdout, "\x1b[H\x1b[2J"+screen)
+		v.mu.Lock()
+		screen := renderWatch(v.devices)
+		v.mu.Unlock()
+		fmt.Fprint(v.out, "\x1b[H\x1b[2J"+screen)
 		select {
 		case <-ctx.Done():
 			return nil
