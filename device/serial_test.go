@@ -14,6 +14,7 @@ import (
 
 	"github.com/creack/pty"
 	"github.com/rs/zerolog"
+	"golang.org/x/sys/unix"
 )
 
 // openPty makes a real pseudo-terminal and points link at its slave end.
@@ -90,7 +91,7 @@ func TestSerialPtyDataUnplugReplug(t *testing.T) {
 	// glued to the first line after the port comes back.
 	for round := 1; round <= 10; round++ {
 		master.WriteString("0.01,5.")
-		time.Sleep(50 * time.Millisecond)
+		waitFor(t, func() bool { return unread(t, link) == 0 }) // the port has the half line
 		master.Close()
 		waitFor(t, func() bool { return !port.Health().Connected })
 		master = openPty(t, link)
@@ -103,6 +104,23 @@ func TestSerialPtyDataUnplugReplug(t *testing.T) {
 		}
 	}
 	master.Close()
+}
+
+// unread is the number of bytes waiting in the pty's input queue, not
+// yet read by the port (TIOCINQ on another descriptor of the same
+// terminal).
+func unread(t *testing.T, path string) int {
+	t.Helper()
+	f, err := os.OpenFile(path, os.O_RDONLY|unix.O_NOCTTY|unix.O_NONBLOCK, 0)
+	if err != nil {
+		return -1
+	}
+	defer f.Close()
+	n, err := unix.IoctlGetInt(int(f.Fd()), unix.TIOCINQ)
+	if err != nil {
+		t.Fatalf("TIOCINQ: %v", err)
+	}
+	return n
 }
 
 func waitFor(t *testing.T, cond func() bool) {
@@ -156,6 +174,9 @@ func TestSerialCloseUnblocksRead(t *testing.T) {
 		_, err := port.Read(make([]byte, 64))
 		done <- err
 	}()
+	// Read blocks inside the goroutine by now, most likely; Close must
+	// end it either way (a Read after Close returns io.EOF as well), so
+	// this pause only makes the test exercise the harder order
 	time.Sleep(20 * time.Millisecond)
 	port.Close()
 	port.Close() // twice is fine

@@ -176,6 +176,7 @@ func strconvF(v float64) string { return string(appendF(nil, v)) }
 // serial device, checks it decodes what the "ventilator" writes, and that
 // SIGTERM ends it with exit 0.
 func TestRunReadsPtyAndStopsOnSIGTERM(t *testing.T) {
+	t.Parallel() // a process of its own, on its own ports and files
 	master, slave, err := pty.Open()
 	if err != nil {
 		t.Skipf("no pseudo-terminal here: %v", err)
@@ -187,13 +188,13 @@ func TestRunReadsPtyAndStopsOnSIGTERM(t *testing.T) {
 	os.WriteFile(cfg, []byte("report_every: 100ms\ndevices:\n  - id: bed7\n    serial:\n      path: "+name+"\n"), 0o600)
 	cmd := breathd("run", "--listen", "127.0.0.1:0", "--config", cfg)
 	stdout, _ := cmd.StdoutPipe()
-	var stderr bytes.Buffer
-	cmd.Stderr = &stderr
+	stderr := &syncBuffer{}
+	cmd.Stderr = stderr
 	if err := cmd.Start(); err != nil {
 		t.Fatal(err)
 	}
 	lines := bufio.NewScanner(stdout)
-	time.Sleep(300 * time.Millisecond) // let it open the port
+	waitFor(t, "the port opened", 10*time.Second, func() bool { return strings.Contains(stderr.String(), "device opened") })
 	go func() {
 		for i := 0; i < 200; i++ {
 			master.WriteString(string(appendLine(nil, float64(i)/100)))

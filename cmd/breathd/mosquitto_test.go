@@ -204,10 +204,20 @@ func collect(t *testing.T, url, id string, tc *tls.Config, user, pass string) *c
 	t.Helper()
 	c := &collector{events: map[string]map[string]any{}, retain: map[string]bool{}, counts: map[string]int{}}
 	addr := strings.Replace(strings.Replace(url, "mqtts://", "ssl://", 1), "mqtt://", "tcp://", 1)
+	subscribed := make(chan error, 1)
 	opts := mqtt.NewClientOptions().AddBroker(addr).SetClientID(id).SetCleanSession(false).SetOrderMatters(false).
 		SetAutoReconnect(true).SetMaxReconnectInterval(500 * time.Millisecond).SetConnectRetry(true).
 		SetConnectRetryInterval(200 * time.Millisecond).SetResumeSubs(true).
-		SetOnConnectHandler(func(cl mqtt.Client) { cl.Subscribe("breathd/#", 1, c.handle) })
+		SetOnConnectHandler(func(cl mqtt.Client) {
+			tok := cl.Subscribe("breathd/#", 1, c.handle)
+			go func() {
+				tok.Wait()
+				select {
+				case subscribed <- tok.Error():
+				default: // a later reconnection: nobody waits
+				}
+			}()
+		})
 	if tc != nil {
 		opts.SetTLSConfig(tc)
 	}
@@ -218,7 +228,14 @@ func collect(t *testing.T, url, id string, tc *tls.Config, user, pass string) *c
 	if tok := cl.Connect(); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
 		t.Fatalf("collector connect: %v", tok.Error())
 	}
-	time.Sleep(100 * time.Millisecond) // the subscription is in place
+	select {
+	case err := <-subscribed:
+		if err != nil {
+			t.Fatalf("collector subscribe: %v", err)
+		}
+	case <-time.After(5 * time.Second):
+		t.Fatal("collector: no subscription")
+	}
 	t.Cleanup(func() { cl.Disconnect(100) })
 	return c
 }
@@ -238,12 +255,12 @@ func waitFor(t *testing.T, what string, limit time.Duration, cond func() bool) {
 // transition, from analyze (the same rules, no broker).
 func expectedDemoEvents(t *testing.T) []string {
 	t.Helper()
-	code, out, errs := runCLI(t, "analyze", "--events", "-", "testdata/demo.txt.gz")
-	if code != 0 {
-		t.Fatal(errs)
+	out, err := breathd("analyze", "--events", "-", "testdata/demo.txt.gz").Output()
+	if err != nil {
+		t.Fatal(err)
 	}
 	var keys []string
-	for _, line := range strings.Split(strings.TrimSpace(out), "\n") {
+	for _, line := range strings.Split(strings.TrimSpace(string(out)), "\n") {
 		var p map[string]any
 		json.Unmarshal([]byte(line), &p)
 		keys = append(keys, fmt.Sprintf("%s %s %.1f", p["rule"], p["transition"], p["t"]))
@@ -264,6 +281,7 @@ func eventKeys(events []map[string]any) map[string]bool {
 // credentials are refused with a clear message; the password never
 // appears in any log line, at the most verbose level.
 func TestMosquittoTLSCredentials(t *testing.T) {
+	t.Parallel() // a process of its own, on its own ports and files
 	needMosquitto(t)
 	tt := makeTLS(t)
 	dir := t.TempDir()
@@ -320,26 +338,27 @@ func tail(b []byte) string {
 // reaches a QoS 1 subscriber with a persistent session (duplicates
 // allowed, counted).
 func TestBrokerRestartsLoseNoEvent(t *testing.T) {
+	t.Parallel() // a process of its own, on its own ports and files
 	m := startMosquitto(t, "", nil)
 	want := expectedDemoEvents(t)
 	c := collect(t, m.url("mqtt"), "restart-collector", nil, "", "")
 	state := t.TempDir()
 	cmd := breathd("replay", "--speed", "100", "--broker", m.url("mqtt"), "--state-dir", state, "testdata/demo.txt.gz")
-	var out bytes.Buffer
-	cmd.Stdout, cmd.Stderr = &out, &out
+	out := &syncBuffer{}
+	cmd.Stdout, cmd.Stderr = out, out
 	if err := cmd.Start(); err != nil {
 		t.Fatal(err)
 	}
-	t0 := time.Now()
-	// the events fall between 6 and 14 s of the 15 s replay
-	for _, at := range []time.Duration{6 * time.Second, 9500 * time.Millisecond, 12500 * time.Millisecond} {
-		time.Sleep(time.Until(t0.Add(at)))
+	// the broker goes away after the first, third and fifth event has
+	// arrived, and comes back once breathd has noticed
+	for i, after := range []int{1, 3, 5} {
+		waitFor(t, fmt.Sprintf("event %d", after), 30*time.Second, func() bool { ev, _, _ := c.snapshot(); return len(ev) >= after })
 		m.stop()
-		time.Sleep(700 * time.Millisecond)
+		waitFor(t, "breathd to notice", 10*time.Second, func() bool { return strings.Count(out.String(), "lost the MQTT broker") > i })
 		m.start()
 	}
 	if err := cmd.Wait(); err != nil {
-		t.Fatalf("replay: %v\n%s", err, tail(out.Bytes()))
+		t.Fatalf("replay: %v\n%s", err, tail([]byte(out.String())))
 	}
 	waitFor(t, "every event", 20*time.Second, func() bool { ev, _, _ := c.snapshot(); return len(ev) >= len(want) })
 	events, dups, _ := c.snapshot()
@@ -357,6 +376,7 @@ func TestBrokerRestartsLoseNoEvent(t *testing.T) {
 // keeps its queued events in the state directory; restarted, it delivers
 // them.
 func TestSIGKILLWhileBrokerDown(t *testing.T) {
+	t.Parallel() // a process of its own, on its own ports and files
 	needMosquitto(t)
 	port := freePort(t)
 	url := fmt.Sprintf("mqtt://127.0.0.1:%d", port)
@@ -410,6 +430,7 @@ func startMosquittoOn(t *testing.T, port int) *mosquitto {
 // offline, retained); after SIGTERM breathd publishes the offline status
 // itself, retained, and exits 0.
 func TestWillAndSIGTERM(t *testing.T) {
+	t.Parallel() // a process of its own, on its own ports and files
 	m := startMosquitto(t, "", nil)
 	c := collect(t, m.url("mqtt"), "will-collector", nil, "", "")
 	start := func() *exec.Cmd {
@@ -455,28 +476,34 @@ func TestWillAndSIGTERM(t *testing.T) {
 // TestReplayPublishesAndWatchShows: the README's pair — replay publishing
 // to the embedded broker, watch in another process showing it.
 func TestReplayPublishesAndWatchShows(t *testing.T) {
+	t.Parallel() // a process of its own, on its own ports and files
 	port := freePort(t)
 	listen := fmt.Sprintf("127.0.0.1:%d", port)
 	rep := breathd("replay", "--speed", "50", "--listen", listen, "testdata/demo.txt.gz")
+	repOut := &syncBuffer{}
+	rep.Stderr = repOut
 	if err := rep.Start(); err != nil {
 		t.Fatal(err)
 	}
 	defer func() { rep.Process.Signal(syscall.SIGTERM); rep.Wait() }()
-	time.Sleep(300 * time.Millisecond)
+	waitFor(t, "the embedded broker", 10*time.Second, func() bool { return strings.Contains(repOut.String(), "embedded MQTT broker started") })
 	w := breathd("watch", "--broker", "mqtt://"+listen)
-	var out bytes.Buffer
-	w.Stdout, w.Stderr = &out, &out
+	out := &syncBuffer{}
+	w.Stdout, w.Stderr = out, out
 	if err := w.Start(); err != nil {
 		t.Fatal(err)
 	}
-	time.Sleep(3 * time.Second)
+	waitFor(t, "watch to show the device", 15*time.Second, func() bool {
+		text := out.String()
+		return strings.Contains(text, "demo status online") && strings.Contains(text, "demo breath ")
+	})
 	w.Process.Signal(syscall.SIGTERM)
 	if err := w.Wait(); err != nil {
 		t.Errorf("watch after SIGTERM: %v", err)
 	}
 	text := out.String()
 	if !strings.Contains(text, "demo status online") || !strings.Contains(text, "demo breath ") {
-		t.Errorf("watch printed:\n%s", tail(out.Bytes()))
+		t.Errorf("watch printed:\n%s", tail([]byte(out.String())))
 	}
 }
 
@@ -484,6 +511,7 @@ func TestReplayPublishesAndWatchShows(t *testing.T) {
 // breathd with exit 0 after the drain deadline; the undelivered events
 // stay in the state directory.
 func TestSIGTERMDuringBrokerOutage(t *testing.T) {
+	t.Parallel()        // a process of its own, on its own ports and files
 	port := freePort(t) // nothing listens there
 	state := t.TempDir()
 	cmd := breathd("replay", "--id", "bed6", "--broker", fmt.Sprintf("mqtt://127.0.0.1:%d", port), "--state-dir", state, "-")

@@ -61,6 +61,7 @@ func ventilatorOnPty(t *testing.T, garbage bool) (string, *os.File) {
 // pty-backed serial devices; one pty is unplugged, the other gets bursts
 // of binary garbage; the simulated device keeps publishing every breath.
 func TestThreeDevicesOneFails(t *testing.T) {
+	t.Parallel() // a process of its own, on its own ports and files
 	unplug, master := ventilatorOnPty(t, false)
 	noisy, _ := ventilatorOnPty(t, true)
 	port := freePort(t)
@@ -85,11 +86,17 @@ devices:
 		t.Fatal(err)
 	}
 	defer func() { run.Process.Signal(syscall.SIGTERM); run.Wait() }()
-	time.Sleep(500 * time.Millisecond)
+	// every device is open and the broker listens before the broker's line
+	waitFor(t, "the embedded broker", 10*time.Second, func() bool { return strings.Contains(out.String(), "embedded MQTT broker started") })
 	c := collectBreaths(t, fmt.Sprintf("mqtt://127.0.0.1:%d", port))
-	time.Sleep(2 * time.Second)
+	waitFor(t, "breaths from every device", 15*time.Second, func() bool {
+		return len(c.seqs("steady")) >= 3 && len(c.seqs("noisy")) >= 2 && len(c.seqs("unplugged")) >= 2
+	})
+	before := len(c.seqs("steady"))
 	master.Close() // unplug
-	time.Sleep(6 * time.Second)
+	waitFor(t, "the loss reported and 10 more breaths", 20*time.Second, func() bool {
+		return strings.Contains(out.String(), "serial port lost") && len(c.seqs("steady")) >= before+10 && len(c.seqs("noisy")) >= 6
+	})
 
 	steady := c.seqs("steady")
 	if len(steady) < 12 {
@@ -143,17 +150,19 @@ func collectBreaths(t *testing.T, url string) *breathLog {
 	t.Helper()
 	bl := &breathLog{seq: map[string][]int{}, gaps: map[string]int{}}
 	opts := mqtt.NewClientOptions().AddBroker(strings.Replace(url, "mqtt://", "tcp://", 1)).SetClientID("multi-collector").
-		SetOrderMatters(true).SetOnConnectHandler(func(c mqtt.Client) {
-		c.Subscribe("breathd/+/breath", 0, func(_ mqtt.Client, m mqtt.Message) {
-			parts := strings.Split(m.Topic(), "/")
-			bl.add(parts[1], m.Payload())
-		})
-	})
+		SetOrderMatters(true)
 	cl := mqtt.NewClient(opts)
 	if tok := cl.Connect(); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
 		t.Fatalf("connect: %v", tok.Error())
 	}
 	t.Cleanup(func() { cl.Disconnect(50) })
+	tok := cl.Subscribe("breathd/+/breath", 0, func(_ mqtt.Client, m mqtt.Message) {
+		parts := strings.Split(m.Topic(), "/")
+		bl.add(parts[1], m.Payload())
+	})
+	if !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
+		t.Fatalf("subscribe: %v", tok.Error())
+	}
 	return bl
 }
 

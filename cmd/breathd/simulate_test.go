@@ -92,6 +92,7 @@ func TestScenarioErrorsNameTheLine(t *testing.T) {
 // TestSimulatePtyReadByRun: "breathd simulate --pty" in one process,
 // "breathd run" reading that pseudo-terminal as a serial port in another.
 func TestSimulatePtyReadByRun(t *testing.T) {
+	t.Parallel() // a process of its own, on its own ports and files
 	link := filepath.Join(t.TempDir(), "ventilator")
 	sim := breathd("simulate", "--pty", "--link", link, "--speed", "5", "--duration", "10m")
 	simErr, _ := sim.StderrPipe()

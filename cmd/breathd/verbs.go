@@ -153,6 +153,7 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 			closeAll()
 			return fmt.Errorf("device %s: %w", d.ID, err)
 		}
+		dlog.Info().Str("source", describeSource(d)).Msg("device opened")
 		runs = append(runs, deviceRun{id: d.ID, src: src, format: d.Format.Lines(),
 			mechanics: d.Mechanics(), rules: d.MergedRules(),
 			live: d.File == nil || d.File.Speed > 0})

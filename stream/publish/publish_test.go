@@ -55,6 +55,13 @@ func (r *received) count(topic string) int {
 	return len(r.msgs[topic])
 }
 
+// nth is the i-th message on topic; the test has waited for it.
+func (r *received) nth(topic string, i int) mqtt.Message {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	return r.msgs[topic][i]
+}
+
 func (r *received) last(topic string) mqtt.Message {
 	r.mu.Lock()
 	defer r.mu.Unlock()
@@ -127,7 +134,7 @@ func TestPublishToEmbeddedBroker(t *testing.T) {
 		t.Errorf("breath payload %v", breath)
 	}
 	var ev map[string]any
-	json.Unmarshal(sub.msgs["breathd/bed9/event"][0].Payload(), &ev)
+	json.Unmarshal(sub.nth("breathd/bed9/event", 0).Payload(), &ev)
 	if ev["rule"] != "driving_pressure_high" || ev["transition"] != "raised" || ev["latching"] != true {
 		t.Errorf("event %v", ev)
 	}
@@ -209,10 +216,10 @@ func TestAckAcknowledgesLatchingRule(t *testing.T) {
 	}()
 	waitUntil(t, "the raised event", func() bool { return sub.count("breathd/bed4/event") >= 1 })
 	var ev map[string]any
-	json.Unmarshal(sub.msgs["breathd/bed4/event"][0].Payload(), &ev)
+	json.Unmarshal(sub.nth("breathd/bed4/event", 0).Payload(), &ev)
 	subc.Publish("breathd/bed4/ack", 1, false, `{"id":"`+ev["id"].(string)+`"}`).Wait()
 	waitUntil(t, "the acknowledged event", func() bool { return sub.count("breathd/bed4/event") >= 2 })
-	json.Unmarshal(sub.msgs["breathd/bed4/event"][1].Payload(), &ev)
+	json.Unmarshal(sub.nth("breathd/bed4/event", 1).Payload(), &ev)
 	if ev["transition"] != "acknowledged" || pub.Counters().Acks != 1 {
 		t.Errorf("second event %v", ev)
 	}
