@@ -16,8 +16,8 @@ type Transition string
 // Transitions of a rule.
 const (
 	Raised       Transition = "raised"
-	Cleared                 = "cleared"
-	Acknowledged            = "acknowledged"
+	Cleared      Transition = "cleared"
+	Acknowledged Transition = "acknowledged"
 )
 
 // Tech is a device's technical state, given to Tick. A NaN field is not

@@ -33,8 +33,8 @@ type Comparison string
 // Comparisons.
 const (
 	Above   Comparison = "above"   // condition: value > threshold; clears below threshold − hysteresis
-	Below              = "below"   // condition: value < threshold; clears above threshold + hysteresis
-	Outside            = "outside" // condition: value < low or > high; clears inside [low + h, high − h]
+	Below   Comparison = "below"   // condition: value < threshold; clears above threshold + hysteresis
+	Outside Comparison = "outside" // condition: value < low or > high; clears inside [low + h, high − h]
 )
 
 // Rule is one threshold rule. Field names a per-breath field of

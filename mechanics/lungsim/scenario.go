@@ -18,8 +18,8 @@ type Mode string
 // Modes.
 const (
 	ModeVC Mode = "vc" // volume control: set flow, optional end-inspiratory pause
-	ModePC      = "pc" // pressure control: set pressure above PEEP for Ti, with a rise time
-	ModePS      = "ps" // pressure support: triggered by the patient, cycled at a fraction of peak flow
+	ModePC Mode = "pc" // pressure control: set pressure above PEEP for Ti, with a rise time
+	ModePS Mode = "ps" // pressure support: triggered by the patient, cycled at a fraction of peak flow
 )
 
 // Settings are the patient's lung, the ventilator's settings and the
