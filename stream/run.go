@@ -6,7 +6,6 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"sort"
 	"strconv"
 	"strings"
 	"sync"
@@ -612,7 +611,7 @@ func (st Status) String() string {
 	}
 	fmt.Fprintf(&b, "  bad %d", c.BadTotal())
 	if c.BadTotal() > 0 {
-		b.WriteString(" (" + badCauses(c) + ")")
+		b.WriteString(" (" + c.BadCauses() + ")")
 	}
 	fmt.Fprintf(&b, "  gaps %d", c.Gaps)
 	if c.Resyncs > 0 {
@@ -629,15 +628,4 @@ func (st Status) String() string {
 		b.WriteString("  (end)")
 	}
 	return b.String()
-}
-
-func badCauses(c *lines.Counts) string {
-	var parts []string
-	for i, n := range c.Bad {
-		if n > 0 {
-			parts = append(parts, fmt.Sprintf("%s %d", lines.Cause(i), n))
-		}
-	}
-	sort.Strings(parts)
-	return strings.Join(parts, ", ")
 }

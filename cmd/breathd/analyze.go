@@ -318,7 +318,7 @@ func (s *summary) print(w io.Writer, st stream.Status, took time.Duration) {
 		st.Device, s.n, c.LastT-c.FirstT, c.Samples, c.RateHz(), took.Seconds())
 	fmt.Fprintf(w, "  bad lines %d", c.BadTotal())
 	if c.BadTotal() > 0 {
-		fmt.Fprintf(w, " (%s)", badCausesOf(&c))
+		fmt.Fprintf(w, " (%s)", c.BadCauses())
 	}
 	d := st.Drops
 	fmt.Fprintf(w, "; gaps %d; breaths dropped: gap %d, open circuit %d, too long %d; rule events %d\n",
@@ -370,14 +370,4 @@ func channelsText(c mechanics.Channels) string {
 		fmt.Fprintf(&b, "; noise σ %.2f cmH2O, %.2f L/min", c.PawSD, c.FlowSD)
 	}
 	return b.String()
-}
-
-func badCausesOf(c *lines.Counts) string {
-	var parts []string
-	for i, n := range c.Bad {
-		if n > 0 {
-			parts = append(parts, fmt.Sprintf("%s %d", lines.Cause(i), n))
-		}
-	}
-	return strings.Join(parts, ", ")
 }

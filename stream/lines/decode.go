@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"sort"
 	"strings"
 	"time"
 )
@@ -122,6 +123,19 @@ func (c *Counts) BadTotal() int64 {
 		n += v
 	}
 	return n
+}
+
+// BadCauses lists the bad lines by cause, "field_count 1, not_finite 2",
+// in the order of the causes' names; "" when there are none.
+func (c *Counts) BadCauses() string {
+	var parts []string
+	for i, n := range c.Bad {
+		if n > 0 {
+			parts = append(parts, fmt.Sprintf("%s %d", Cause(i), n))
+		}
+	}
+	sort.Strings(parts)
+	return strings.Join(parts, ", ")
 }
 
 // RateHz is the sample rate seen so far, or 0 before two samples.
@@ -355,15 +369,7 @@ func (d *Decoder) readLine() (line []byte, tooLong bool, err error) {
 		if d.readErr != nil {
 			return d.finalLine()
 		}
-		if d.start > 0 {
-			d.end = copy(d.buf, d.buf[d.start:d.end])
-			d.start = 0
-		}
-		n, err := d.r.Read(d.buf[d.end:])
-		d.end += n
-		if err != nil {
-			d.readErr = err
-		}
+		d.fill()
 	}
 }
 

@@ -161,6 +161,10 @@ func TestBadLinesCountedByCause(t *testing.T) {
 	if c.Bad != wantBad {
 		t.Errorf("bad = %v, want %v", c.Bad, wantBad)
 	}
+	const causes = "bad_directive 1, field_count 2, not_finite 3, not_number 2, out_of_range 2, time_backwards 2, too_long 1"
+	if got := c.BadCauses(); got != causes {
+		t.Errorf("BadCauses() = %q", got)
+	}
 	if len(got) != 4 || c.Samples != 4 {
 		t.Fatalf("got %d good samples (%d counted), want 4", len(got), c.Samples)
 	}
