@@ -20,7 +20,9 @@ func TestPackageLayout(t *testing.T) {
 		}
 		return strings.Fields(string(out))
 	}
-	std := func(p string) bool { return !strings.Contains(strings.SplitN(p, "/", 2)[0], ".") && !strings.HasPrefix(p, "breathd") }
+	std := func(p string) bool {
+		return !strings.Contains(strings.SplitN(p, "/", 2)[0], ".") && !strings.HasPrefix(p, "breathd")
+	}
 	rules := []struct {
 		pkg    string
 		forbid func(dep string) bool
