@@ -16,6 +16,7 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"sync"
 	"syscall"
@@ -55,6 +56,7 @@ type mosquitto struct {
 	t    *testing.T
 	bin  string
 	conf string
+	host string // the address it listens on
 	port int
 	cmd  *exec.Cmd
 	log  *bytes.Buffer
@@ -63,11 +65,16 @@ type mosquitto struct {
 // startMosquitto writes a config (with persistence, so that sessions
 // survive a restart) and starts the broker on an ephemeral port.
 func startMosquitto(t *testing.T, extra string, tlsFiles *testTLS) *mosquitto {
+	return startMosquittoAt(t, "127.0.0.1", extra, tlsFiles)
+}
+
+// startMosquittoAt is startMosquitto listening on host.
+func startMosquittoAt(t *testing.T, host, extra string, tlsFiles *testTLS) *mosquitto {
 	bin := needMosquitto(t)
 	dir := t.TempDir()
-	m := &mosquitto{t: t, bin: bin, port: freePort(t), conf: filepath.Join(dir, "mosquitto.conf")}
-	conf := fmt.Sprintf("listener %d 127.0.0.1\npersistence true\npersistence_location %s/\nautosave_interval 1\n"+
-		"autosave_on_changes true\nmax_queued_messages 100000\nlog_dest stderr\n", m.port, dir)
+	m := &mosquitto{t: t, bin: bin, host: host, port: freePort(t), conf: filepath.Join(dir, "mosquitto.conf")}
+	conf := fmt.Sprintf("listener %d %s\npersistence true\npersistence_location %s/\nautosave_interval 1\n"+
+		"autosave_on_changes true\nmax_queued_messages 100000\nlog_dest stderr\n", m.port, host, dir)
 	if tlsFiles != nil {
 		conf += fmt.Sprintf("cafile %s\ncertfile %s\nkeyfile %s\n", tlsFiles.ca, tlsFiles.cert, tlsFiles.key)
 	}
@@ -93,7 +100,7 @@ func (m *mosquitto) start() {
 	}
 	deadline := time.Now().Add(5 * time.Second)
 	for {
-		c, err := net.Dial("tcp", fmt.Sprintf("127.0.0.1:%d", m.port))
+		c, err := net.Dial("tcp", net.JoinHostPort(m.host, strconv.Itoa(m.port)))
 		if err == nil {
 			c.Close()
 			return
@@ -115,7 +122,7 @@ func (m *mosquitto) stop() {
 }
 
 func (m *mosquitto) url(scheme string) string {
-	return fmt.Sprintf("%s://127.0.0.1:%d", scheme, m.port)
+	return scheme + "://" + net.JoinHostPort(m.host, strconv.Itoa(m.port))
 }
 
 // testTLS is a CA and a server certificate for 127.0.0.1, made here.
@@ -415,7 +422,7 @@ func TestSIGKILLWhileBrokerDown(t *testing.T) {
 func startMosquittoOn(t *testing.T, port int) *mosquitto {
 	bin := needMosquitto(t)
 	dir := t.TempDir()
-	m := &mosquitto{t: t, bin: bin, port: port, conf: filepath.Join(dir, "mosquitto.conf")}
+	m := &mosquitto{t: t, bin: bin, host: "127.0.0.1", port: port, conf: filepath.Join(dir, "mosquitto.conf")}
 	conf := fmt.Sprintf("listener %d 127.0.0.1\nallow_anonymous true\npersistence true\npersistence_location %s/\n", port, dir)
 	if os.Geteuid() == 0 {
 		conf += "user root\n"

@@ -4,6 +4,7 @@ import (
 	"context"
 	"flag"
 	"fmt"
+	"net"
 	"path/filepath"
 	"strings"
 	"sync"
@@ -109,15 +110,10 @@ func startMQTT(c config.MQTT, e config.Embedded, stateDir string, log zerolog.Lo
 			return nil, err
 		}
 		s.broker, s.url = b, b.URL()
-		log.Info().Str("listen", b.Addr()).Msg("embedded MQTT broker started (mosquitto_sub -h " + hostOf(b.Addr()) + " -p " + portOf(b.Addr()) + " -t 'breathd/#' -v)")
+		host, port, _ := net.SplitHostPort(b.LocalAddr())
+		log.Info().Str("listen", b.Addr()).Msg("embedded MQTT broker started (mosquitto_sub -h " + host + " -p " + port + " -t 'breathd/#' -v)")
 	}
 	return s, nil
-}
-
-func hostOf(a string) string { h, _, _ := strings.Cut(a, ":"); return h }
-func portOf(a string) string {
-	i := strings.LastIndex(a, ":")
-	return a[i+1:]
 }
 
 // publisher makes the publisher of one device.

@@ -134,8 +134,21 @@ func readPasswordFile(path string) (auth.Users, error) {
 // Addr is the address the broker listens on.
 func (b *Broker) Addr() string { return b.addr }
 
-// URL is the broker's address as a client URL.
-func (b *Broker) URL() string { return "mqtt://" + b.addr }
+// URL is the broker's address as a client URL on this machine: a broker
+// listening on every address (0.0.0.0, [::]) is reached on loopback.
+func (b *Broker) URL() string { return "mqtt://" + b.LocalAddr() }
+
+// LocalAddr is host:port to reach the broker from this machine.
+func (b *Broker) LocalAddr() string {
+	host, port, err := net.SplitHostPort(b.addr)
+	if err != nil {
+		return b.addr
+	}
+	if ip := net.ParseIP(host); ip != nil && ip.IsUnspecified() {
+		host = "127.0.0.1"
+	}
+	return net.JoinHostPort(host, port)
+}
 
 // Close stops the broker; it is safe to call more than once.
 func (b *Broker) Close() error {

@@ -68,3 +68,26 @@ func writeFile(t *testing.T, dir, text string) string {
 	}
 	return path
 }
+
+// TestClientAddress: a broker listening on every address is reached on
+// loopback; an IPv6 address is written in brackets. RFC 3986 for the
+// brackets.
+func TestClientAddress(t *testing.T) {
+	pw := writeFile(t, t.TempDir(), "board1:correct-horse\n")
+	b, err := Start(Config{Listen: "0.0.0.0:0", PasswordFile: pw}, zerolog.Nop())
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer b.Close()
+	if !strings.HasPrefix(b.URL(), "mqtt://127.0.0.1:") {
+		t.Errorf("wildcard listener: URL %s (listening on %s)", b.URL(), b.Addr())
+	}
+	b6, err := Start(Config{Listen: "[::1]:0"}, zerolog.Nop())
+	if err != nil {
+		t.Skipf("no IPv6 loopback: %v", err)
+	}
+	defer b6.Close()
+	if !strings.HasPrefix(b6.URL(), "mqtt://[::1]:") {
+		t.Errorf("IPv6 listener: URL %s", b6.URL())
+	}
+}

@@ -5,6 +5,7 @@ import (
 	"crypto/x509"
 	"errors"
 	"fmt"
+	"net"
 	"net/url"
 	"os"
 	"strings"
@@ -95,7 +96,7 @@ func (d Dial) address() (string, *tls.Config, error) {
 		if port == "" {
 			port = "1883"
 		}
-		return "tcp://" + u.Hostname() + ":" + port, nil, nil
+		return "tcp://" + net.JoinHostPort(u.Hostname(), port), nil, nil
 	case "mqtts", "ssl", "tls":
 		if port == "" {
 			port = "8883"
@@ -122,5 +123,5 @@ func (d Dial) address() (string, *tls.Config, error) {
 		}
 		tc.Certificates = []tls.Certificate{cert}
 	}
-	return "ssl://" + u.Hostname() + ":" + port, tc, nil
+	return "ssl://" + net.JoinHostPort(u.Hostname(), port), tc, nil
 }

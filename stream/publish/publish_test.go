@@ -415,3 +415,20 @@ func TestSecretNeverShown(t *testing.T) {
 		t.Errorf("what was shown:\n%s", seen.String())
 	}
 }
+
+// TestDialAddresses: broker URLs to paho's addresses, IPv6 in brackets
+// (RFC 3986), default ports 1883 and 8883 (IANA).
+func TestDialAddresses(t *testing.T) {
+	for in, want := range map[string]string{
+		"mqtt://127.0.0.1:1884": "tcp://127.0.0.1:1884",
+		"mqtt://[::1]:1884":     "tcp://[::1]:1884",
+		"mqtt://[::1]":          "tcp://[::1]:1883",
+		"mqtts://broker.local":  "ssl://broker.local:8883",
+		"mqtts://[fe80::1]:99":  "ssl://[fe80::1]:99",
+	} {
+		got, _, err := (Dial{Broker: in}).address()
+		if err != nil || got != want {
+			t.Errorf("%s: %s, %v; want %s", in, got, err, want)
+		}
+	}
+}
