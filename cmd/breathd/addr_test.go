@@ -1,14 +1,20 @@
 package main
 
 import (
+	"crypto/tls"
 	"fmt"
 	"net"
+	"os"
+	"path/filepath"
 	"regexp"
 	"strconv"
 	"strings"
+	"sync/atomic"
 	"syscall"
 	"testing"
 	"time"
+
+	mqtt "github.com/eclipse/paho.mqtt.golang"
 )
 
 // needIPv6 skips when this machine has no IPv6 loopback.
@@ -54,14 +60,7 @@ func TestEmbeddedBrokerOnIPv6(t *testing.T) {
 	port := l.Addr().(*net.TCPAddr).Port
 	l.Close()
 	listen := net.JoinHostPort("::1", strconv.Itoa(port))
-	cmd := breathd("replay", "--speed", "50", "--id", "v6e", "--listen", listen, "testdata/demo.txt.gz")
-	out := &syncBuffer{}
-	cmd.Stdout, cmd.Stderr = out, out
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
-	defer func() { cmd.Process.Signal(syscall.SIGTERM); cmd.Wait() }()
-	waitFor(t, "the embedded broker", 10*time.Second, func() bool { return strings.Contains(out.String(), "embedded MQTT broker started") })
+	out := startBreathd(t, "embedded MQTT broker started", "replay", "--speed", "50", "--id", "v6e", "--listen", listen, "testdata/demo.txt.gz")
 	if want := fmt.Sprintf("mosquitto_sub -h ::1 -p %d", port); !strings.Contains(out.String(), want) {
 		t.Errorf("hint: want %q in\n%s", want, out.String())
 	}
@@ -78,4 +77,50 @@ func breathsSaid(t *testing.T, out []byte) int {
 	}
 	n, _ := strconv.Atoi(string(m[len(m)-1][1]))
 	return n
+}
+
+// TestEmbeddedBrokerOnEveryAddress: --listen 0.0.0.0:PORT needs a password
+// file and TLS; with both, breathd's own publisher reaches the broker (on
+// a loopback listener of its own) and a user of the password file reads
+// the breaths over TLS on that port.
+func TestEmbeddedBrokerOnEveryAddress(t *testing.T) {
+	t.Parallel() // a process of its own, on its own ports and files
+	tt := makeTLS(t)
+	pw := filepath.Join(t.TempDir(), "passwd")
+	os.WriteFile(pw, []byte("viewer:v-secret-9\n"), 0o600)
+	port := freePort(t)
+	listen := fmt.Sprintf("0.0.0.0:%d", port)
+	if out, err := breathd("replay", "--listen", listen, "--broker-passwords", pw, "testdata/bad-lines.txt").CombinedOutput(); err == nil ||
+		!strings.Contains(string(out), "give the broker a certificate and key") {
+		t.Errorf("off loopback without TLS: %v\n%s", err, out)
+	}
+	out := startBreathd(t, "embedded MQTT broker started", "replay", "--speed", "50", "--id", "ward", "--listen", listen,
+		"--broker-passwords", pw, "--broker-cert", tt.cert, "--broker-key", tt.key, "testdata/demo.txt.gz")
+	opts := mqtt.NewClientOptions().AddBroker(fmt.Sprintf("ssl://127.0.0.1:%d", port)).SetClientID("ward-viewer").
+		SetUsername("viewer").SetPassword("v-secret-9").SetTLSConfig(&tls.Config{RootCAs: tt.pool, ServerName: "127.0.0.1"})
+	c := mqtt.NewClient(opts)
+	if tok := c.Connect(); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
+		t.Fatalf("viewer over TLS: %v\n%s", tok.Error(), out.String())
+	}
+	defer c.Disconnect(50)
+	var n atomic.Int64
+	if tok := c.Subscribe("breathd/ward/breath", 0, func(mqtt.Client, mqtt.Message) { n.Add(1) }); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
+		t.Fatal(tok.Error())
+	}
+	waitFor(t, "breaths over TLS on 0.0.0.0", 20*time.Second, func() bool { return n.Load() >= 3 })
+}
+
+// startBreathd starts breathd with args, stopped with SIGTERM when the test
+// ends, and waits until its output says ready.
+func startBreathd(t *testing.T, ready string, args ...string) *syncBuffer {
+	t.Helper()
+	cmd := breathd(args...)
+	out := &syncBuffer{}
+	cmd.Stdout, cmd.Stderr = out, out
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { cmd.Process.Signal(syscall.SIGTERM); cmd.Wait() })
+	waitFor(t, "breathd to say "+ready, 10*time.Second, func() bool { return strings.Contains(out.String(), ready) })
+	return out
 }

@@ -55,13 +55,16 @@ func setFlag(dst *string, v string) {
 type mqttFlags struct {
 	clientFlags
 	broker, root, listen, brokerPasswords, stateDir string
+	brokerCert, brokerKey                           string
 	noMQTT                                          bool
 }
 
 func (m *mqttFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&m.broker, "broker", "", "MQTT broker, mqtt://host:port or mqtts://host:port (default: start the embedded one)")
 	fs.StringVar(&m.listen, "listen", "", "where the embedded broker listens (default 127.0.0.1:1883)")
-	fs.StringVar(&m.brokerPasswords, "broker-passwords", "", "user:password file for the embedded broker (required off loopback)")
+	fs.StringVar(&m.brokerPasswords, "broker-passwords", "", "password file of the embedded broker: user:password lines, ack user:password for who may acknowledge (required off loopback)")
+	fs.StringVar(&m.brokerCert, "broker-cert", "", "TLS certificate (PEM) of the embedded broker (required off loopback)")
+	fs.StringVar(&m.brokerKey, "broker-key", "", "its TLS key (PEM)")
 	fs.StringVar(&m.root, "root", "", "topic root (default breathd)")
 	m.clientFlags.register(fs)
 	fs.StringVar(&m.stateDir, "state-dir", "", "directory for the durable event queue (default: in memory only)")
@@ -75,6 +78,8 @@ func (m *mqttFlags) apply(c *config.MQTT, e *config.Embedded, stateDir *string) 
 	m.clientFlags.apply(c)
 	setFlag(&e.Listen, m.listen)
 	setFlag(&e.PasswordFile, m.brokerPasswords)
+	setFlag(&e.CertFile, m.brokerCert)
+	setFlag(&e.KeyFile, m.brokerKey)
 	setFlag(stateDir, m.stateDir)
 	c.Off = c.Off || m.noMQTT
 }
@@ -105,11 +110,16 @@ func startMQTT(c config.MQTT, e config.Embedded, stateDir string, log zerolog.Lo
 	}
 	s := &mqttSession{cfg: c, password: pw, url: c.Broker, stateDir: stateDir, log: log}
 	if s.url == "" {
-		b, err := broker.Start(broker.Config{Listen: e.Listen, PasswordFile: e.PasswordFile}, log)
+		b, err := broker.Start(broker.Config{Listen: e.Listen, PasswordFile: e.PasswordFile, CertFile: e.CertFile,
+			KeyFile: e.KeyFile, NoAnonymous: e.NoAnonymous, Root: c.Root, Limits: broker.Limits{Clients: e.MaxClients}}, log)
 		if err != nil {
 			return nil, err
 		}
 		s.broker, s.url = b, b.URL()
+		// breathd's own publishers log in with this run's secret, over
+		// loopback in the clear
+		s.cfg.Username, s.password = b.Publisher()
+		s.cfg.CAFile, s.cfg.CertFile, s.cfg.KeyFile = "", "", ""
 		host, port, _ := net.SplitHostPort(b.LocalAddr())
 		log.Info().Str("listen", b.Addr()).Msg("embedded MQTT broker started (mosquitto_sub -h " + host + " -p " + port + " -t 'breathd/#' -v)")
 	}

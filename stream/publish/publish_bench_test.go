@@ -29,7 +29,7 @@ func BenchmarkPublishLatency(b *testing.B) {
 		arrived <- p.Seq
 	}).Wait()
 	defer sub.Disconnect(50)
-	pub, err := New(Config{Dial: Dial{Broker: br.URL()}, Device: "lat", Log: zerolog.Nop()})
+	pub, err := New(Config{Dial: publisherDial(br), Device: "lat", Log: zerolog.Nop()})
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -76,7 +76,7 @@ func BenchmarkPublishThroughput(b *testing.B) {
 		mu.Unlock()
 	}).Wait()
 	defer sub.Disconnect(50)
-	pub, _ := New(Config{Dial: Dial{Broker: br.URL()}, Device: "tp", Log: zerolog.Nop()})
+	pub, _ := New(Config{Dial: publisherDial(br), Device: "tp", Log: zerolog.Nop()})
 	defer pub.Close(context.Background())
 	w, _ := mechanics.NewWindow(mechanics.WindowConfig{})
 	br0 := mechanics.Breath{TEnd: 4, VTi: 450, PPeak: 25, PPlat: 20, PEEP: 5}

@@ -26,15 +26,24 @@ import (
 	"github.com/rs/zerolog"
 )
 
-// startTestBroker starts the embedded broker on an ephemeral loopback port.
+// startTestBroker starts the embedded broker on an ephemeral loopback port
+// with one user, "nurse", who may read and acknowledge.
 func startTestBroker(t testing.TB) *broker.Broker {
 	t.Helper()
-	b, err := broker.Start(broker.Config{Listen: "127.0.0.1:0"}, zerolog.Nop())
+	pw := filepath.Join(t.TempDir(), "passwd")
+	os.WriteFile(pw, []byte("ack nurse:nurse-pw\n"), 0o600)
+	b, err := broker.Start(broker.Config{Listen: "127.0.0.1:0", PasswordFile: pw}, zerolog.Nop())
 	if err != nil {
 		t.Fatal(err)
 	}
 	t.Cleanup(func() { b.Close() })
 	return b
+}
+
+// publisherDial is how breathd's publisher reaches the embedded broker.
+func publisherDial(b *broker.Broker) Dial {
+	user, secret := b.Publisher()
+	return Dial{Broker: b.URL(), Username: user, Password: secret}
 }
 
 // received collects messages by topic.
@@ -72,11 +81,13 @@ func (r *received) last(topic string) mqtt.Message {
 	return l[len(l)-1]
 }
 
-// subscribe connects a plain paho client to url and subscribes to filter.
+// subscribe connects a plain paho client to url as the user "nurse" (who
+// may acknowledge) and subscribes to filter.
 func subscribe(t testing.TB, url, filter string, clean bool, id string) (*received, mqtt.Client) {
 	t.Helper()
 	r := &received{msgs: map[string][]mqtt.Message{}}
 	opts := mqtt.NewClientOptions().AddBroker(strings.Replace(url, "mqtt://", "tcp://", 1)).SetClientID(id).
+		SetUsername("nurse").SetPassword("nurse-pw").
 		SetCleanSession(clean).SetOrderMatters(false).SetAutoReconnect(true).SetMaxReconnectInterval(time.Second).
 		SetConnectRetry(true).SetConnectRetryInterval(200 * time.Millisecond).
 		SetOnConnectHandler(func(c mqtt.Client) { c.Subscribe(filter, 1, r.add) })
@@ -107,7 +118,7 @@ func TestPublishToEmbeddedBroker(t *testing.T) {
 	b := startTestBroker(t)
 	sub, subc := subscribe(t, b.URL(), "breathd/#", true, "test-sub")
 	ctl := &stream.Control{}
-	pub, err := New(Config{Dial: Dial{Broker: b.URL()}, Device: "bed9", StateDir: t.TempDir(),
+	pub, err := New(Config{Dial: publisherDial(b), Device: "bed9", StateDir: t.TempDir(),
 		StatusEvery: 200 * time.Millisecond, Status: ctl.Status, Log: zerolog.Nop()})
 	if err != nil {
 		t.Fatal(err)
@@ -198,7 +209,7 @@ func TestAckAcknowledgesLatchingRule(t *testing.T) {
 	b := startTestBroker(t)
 	sub, subc := subscribe(t, b.URL(), "breathd/#", true, "ack-sub")
 	ctl := &stream.Control{}
-	pub, err := New(Config{Dial: Dial{Broker: b.URL()}, Device: "bed4", Status: ctl.Status, Log: zerolog.Nop()})
+	pub, err := New(Config{Dial: publisherDial(b), Device: "bed4", Status: ctl.Status, Log: zerolog.Nop()})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -335,7 +346,7 @@ func TestBrokerPasswordFile(t *testing.T) {
 	dir := t.TempDir()
 	pw := dir + "/passwd"
 	os.WriteFile(pw, []byte("# boards\nboard1:correct-horse\n"), 0o600)
-	b, err := broker.Start(broker.Config{Listen: "127.0.0.1:0", PasswordFile: pw}, zerolog.Nop())
+	b, err := broker.Start(broker.Config{Listen: "127.0.0.1:0", PasswordFile: pw, NoAnonymous: true}, zerolog.Nop())
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -351,7 +362,7 @@ func TestBrokerPasswordFile(t *testing.T) {
 	}
 	_, err = New(Config{Dial: Dial{Broker: b.URL()}, Device: "pw3", Log: zerolog.Nop()})
 	if err == nil {
-		t.Error("anonymous client accepted by a broker with a password file")
+		t.Error("anonymous client accepted by a broker that refuses them")
 	}
 	os.WriteFile(pw, []byte("board1:\n"), 0o600)
 	if _, err := broker.Start(broker.Config{Listen: "127.0.0.1:0", PasswordFile: pw}, zerolog.Nop()); err == nil {

@@ -70,7 +70,7 @@ func TestSoak(t *testing.T) {
 	sub.Subscribe("breathd/soak/event", 1, func(mqtt.Client, mqtt.Message) { events.Add(1) }).Wait()
 	sub.Subscribe("breathd/soak/breath", 0, func(mqtt.Client, mqtt.Message) { breaths.Add(1) }).Wait()
 	ctl := &stream.Control{}
-	pub, err := New(Config{Dial: Dial{Broker: b.URL()}, Device: "soak", StateDir: t.TempDir(), Status: ctl.Status, Log: zerolog.Nop()})
+	pub, err := New(Config{Dial: publisherDial(b), Device: "soak", StateDir: t.TempDir(), Status: ctl.Status, Log: zerolog.Nop()})
 	if err != nil {
 		t.Fatal(err)
 	}

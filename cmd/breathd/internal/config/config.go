@@ -257,7 +257,11 @@ type MQTT struct {
 // Embedded is the embedded broker's part.
 type Embedded struct {
 	Listen       string `yaml:"listen"`        // default 127.0.0.1:1883
-	PasswordFile string `yaml:"password_file"` // user:password lines; required off loopback
+	PasswordFile string `yaml:"password_file"` // "user:password" or "ack user:password" lines; required off loopback
+	CertFile     string `yaml:"cert_file"`     // TLS certificate (PEM); required off loopback
+	KeyFile      string `yaml:"key_file"`      // its key (PEM)
+	NoAnonymous  bool   `yaml:"no_anonymous"`  // refuse clients without a user name (by default they may read)
+	MaxClients   int64  `yaml:"max_clients"`   // default 64
 }
 
 // Dial is how a client reaches the broker at url with these settings.
