@@ -124,3 +124,23 @@ func startBreathd(t *testing.T, ready string, args ...string) *syncBuffer {
 	waitFor(t, "breathd to say "+ready, 10*time.Second, func() bool { return strings.Contains(out.String(), ready) })
 	return out
 }
+
+// TestWatchCleansUntrustedText: escape sequences, newlines and
+// bidirectional overrides in a message never reach the terminal as they
+// are. Common practice (terminal escape injection), no source.
+func TestWatchCleansUntrustedText(t *testing.T) {
+	evil := "\x1b]0;owned\x07\x1b[2Jrule\nFAKE LINE\u202e\x9b31m"
+	p := clean(map[string]any{"rule": evil, "flags": []any{evil}, evil: 1.0}).(map[string]any)
+	line := watchLine(cleanText("bed\x1b[1m"), "event", p)
+	screen := renderWatch(map[string]*deviceView{cleanText("bed\x1b[1m"): {breath: p, active: []any{p}}})
+	for _, out := range []string{line, screen, fmt.Sprint(p)} {
+		for _, r := range out {
+			if r == 0x1b || r == 0x07 || r == 0x9b || r == '\u202e' {
+				t.Errorf("control character %U in %q", r, out)
+			}
+		}
+	}
+	if strings.Contains(line, "\n") {
+		t.Errorf("a newline from a message in %q", line)
+	}
+}

@@ -168,6 +168,7 @@ type collector struct {
 	events map[string]map[string]any // by event id
 	dups   int
 	status []map[string]any
+	active []string // raw payloads, "" for a cleared retained message
 	retain map[string]bool
 	counts map[string]int
 }
@@ -189,7 +190,16 @@ func (c *collector) handle(_ mqtt.Client, m mqtt.Message) {
 	case strings.HasSuffix(topic, "/status"):
 		c.status = append(c.status, p)
 		c.retain["status"] = m.Retained()
+	case strings.HasSuffix(topic, "/active"):
+		c.active = append(c.active, string(m.Payload()))
 	}
+}
+
+// actives are the active-rules payloads received so far.
+func (c *collector) actives() []string {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	return append([]string(nil), c.active...)
 }
 
 func (c *collector) snapshot() (events []map[string]any, dups int, status []map[string]any) {
@@ -434,8 +444,8 @@ func startMosquittoOn(t *testing.T, port int) *mosquitto {
 }
 
 // TestWillAndSIGTERM: after SIGKILL the broker publishes the will (status
-// offline, retained); after SIGTERM breathd publishes the offline status
-// itself, retained, and exits 0.
+// offline, retained); after SIGTERM breathd clears its retained trend and
+// active set, publishes the offline status itself, retained, and exits 0.
 func TestWillAndSIGTERM(t *testing.T) {
 	t.Parallel() // a process of its own, on its own ports and files
 	m := startMosquitto(t, "", nil)
@@ -478,6 +488,11 @@ func TestWillAndSIGTERM(t *testing.T) {
 		_, _, st := late.snapshot()
 		return len(st) > 0 && st[0]["state"] == "offline"
 	})
+	// a clean stop leaves no trend and no raised rules behind (the status
+	// arrived after them, so they would have arrived by now)
+	if n, a := late.count("trend"), late.actives(); n != 0 || len(a) != 0 {
+		t.Errorf("after a clean stop: %d retained trends, active %q", n, a)
+	}
 }
 
 // TestReplayPublishesAndWatchShows: the README's pair — replay publishing
@@ -549,4 +564,66 @@ func TestSIGTERMDuringBrokerOutage(t *testing.T) {
 		t.Errorf("no word on the undelivered events:\n%s", tail([]byte(out.String())))
 	}
 	t.Logf("stopped %.1f s after SIGTERM", took.Seconds())
+}
+
+// TestSIGKILLLeavesNoStaleState: after SIGKILL the retained status is the
+// will, which carries nothing that could be older than the last online
+// status (no time, no counters); a restart with other rules shows no
+// stale raised rule, neither live nor retained.
+func TestSIGKILLLeavesNoStaleState(t *testing.T) {
+	t.Parallel() // a process of its own, on its own ports and files
+	m := startMosquitto(t, "", nil)
+	c := collect(t, m.url("mqtt"), "stale-collector", nil, "", "")
+	state := t.TempDir()
+	cmd := breathd("replay", "--speed", "100", "--id", "bed8", "--broker", m.url("mqtt"), "--state-dir", state, "testdata/demo.txt.gz")
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	waitFor(t, "a raised rule", 20*time.Second, func() bool {
+		a := c.actives()
+		return len(a) > 0 && strings.Contains(a[len(a)-1], "compliance_falling")
+	})
+	cmd.Process.Signal(syscall.SIGKILL)
+	cmd.Wait()
+	lastStatus := func() map[string]any { _, _, st := c.snapshot(); return st[len(st)-1] }
+	waitFor(t, "the will", 10*time.Second, func() bool { return lastStatus()["state"] == "offline" })
+	will := lastStatus()
+	for k := range will {
+		if k != "v" && k != "device" && k != "state" && k != "reason" {
+			t.Errorf("the will carries %q: %v", k, will)
+		}
+	}
+	if will["device"] != "bed8" || will["reason"] != "connection lost" {
+		t.Errorf("will %v", will)
+	}
+
+	// the next start switches the raised rule off
+	cfg := filepath.Join(t.TempDir(), "other-rules.yaml")
+	os.WriteFile(cfg, []byte(fmt.Sprintf(`state_dir: %s
+mqtt: {broker: "%s"}
+devices:
+  - id: bed8
+    file: {path: testdata/bad-lines.txt}
+    rules:
+      - {id: compliance_falling, off: true}
+`, state, m.url("mqtt"))), 0o600)
+	before := len(c.actives())
+	if out, err := breathd("run", "--config", cfg).CombinedOutput(); err != nil {
+		t.Fatalf("restart: %v\n%s", err, tail(out))
+	}
+	waitFor(t, "the new run's active set", 10*time.Second, func() bool { return len(c.actives()) > before })
+	for _, a := range c.actives()[before:] {
+		if strings.Contains(a, "compliance_falling") {
+			t.Errorf("stale active set after the restart: %s", a)
+		}
+	}
+	late := collect(t, m.url("mqtt"), "stale-late", nil, "", "")
+	late.mu.Lock()
+	retained := append([]string(nil), late.active...)
+	late.mu.Unlock()
+	for _, a := range retained {
+		if strings.Contains(a, "compliance_falling") {
+			t.Errorf("stale retained active set: %s", a)
+		}
+	}
 }

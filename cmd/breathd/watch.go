@@ -11,6 +11,8 @@ import (
 	"strings"
 	"sync"
 	"time"
+	"unicode"
+	"unicode/utf8"
 
 	"breathd/cmd/breathd/internal/config"
 	"breathd/stream/broker"
@@ -94,6 +96,9 @@ func (v *watcher) handle(_ paho.Client, m paho.Message) {
 	if json.Unmarshal(m.Payload(), &p) != nil {
 		return
 	}
+	// what arrives is untrusted: no control character reaches the terminal
+	p = clean(p).(map[string]any)
+	parts[0] = cleanText(parts[0])
 	v.mu.Lock()
 	defer v.mu.Unlock()
 	d := v.devices[parts[0]]
@@ -134,6 +139,42 @@ func (v *watcher) redraw(ctx context.Context) error {
 		case <-tick.C:
 		}
 	}
+}
+
+// clean returns v with every string cleaned by cleanText, keys too.
+func clean(v any) any {
+	switch x := v.(type) {
+	case string:
+		return cleanText(x)
+	case []any:
+		for i := range x {
+			x[i] = clean(x[i])
+		}
+		return x
+	case map[string]any:
+		out := make(map[string]any, len(x))
+		for k, e := range x {
+			out[cleanText(k)] = clean(e)
+		}
+		return out
+	}
+	return v
+}
+
+// cleanText replaces control characters (escape sequences, newlines,
+// C1 controls) and bidirectional overrides with "?", and invalid UTF-8
+// with U+FFFD, and cuts the text at 200 characters.
+func cleanText(s string) string {
+	s = strings.ToValidUTF8(s, "\uFFFD")
+	if utf8.RuneCountInString(s) > 200 {
+		s = string([]rune(s)[:200]) + "…"
+	}
+	return strings.Map(func(r rune) rune {
+		if unicode.IsControl(r) || unicode.Is(unicode.Bidi_Control, r) {
+			return '?'
+		}
+		return r
+	}, s)
 }
 
 // f formats a JSON number, "-" for null.

@@ -192,6 +192,19 @@ func Status(device string, seq int64, state, reason, version string, st stream.S
 	return out
 }
 
+// Will is the status a broker publishes when the device's publisher is
+// lost: the state, the reason and the device, nothing that would be stale
+// by then (no counters, no time).
+func Will(device, reason string) []byte {
+	out, _ := json.Marshal(struct {
+		V      int    `json:"v"`
+		Device string `json:"device"`
+		State  string `json:"state"`
+		Reason string `json:"reason"`
+	}{Version, device, "offline", reason})
+	return out
+}
+
 // Counters are a publisher's own counts, for the status payload.
 type Counters struct {
 	QueueDepth, Dropped, Sent, Reconnects, Acks, AcksRefused, Unqueued int64

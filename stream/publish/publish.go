@@ -102,6 +102,20 @@ type Publisher struct {
 	statusDue  atomic.Bool
 	ackFn      atomic.Pointer[func(id string) error]
 	lastActive atomic.Pointer[[]byte]
+
+	// events handed over by the device loop, persisted in order by
+	// persistEvents so that no disk write happens on the sample path
+	evMu    sync.Mutex
+	evQueue []eventItem
+	evKick  chan struct{}
+	evDone  chan struct{} // closed when persistEvents has ended
+}
+
+// eventItem is an event with the active set after it, copied out of the
+// device loop.
+type eventItem struct {
+	ev     alerts.Event
+	active []alerts.Active
 }
 
 // A Publisher is a sink of the device loop, for breaths and for events.
@@ -138,7 +152,8 @@ func New(cfg Config) (*Publisher, error) {
 	if err != nil {
 		return nil, err
 	}
-	p := &Publisher{cfg: cfg, sp: sp, q0: make(chan record, breathQueue), kick: make(chan struct{}, 1), done: make(chan struct{})}
+	p := &Publisher{cfg: cfg, sp: sp, q0: make(chan record, breathQueue), kick: make(chan struct{}, 1), done: make(chan struct{}),
+		evKick: make(chan struct{}, 1), evDone: make(chan struct{})}
 	base := cfg.Root + "/" + cfg.Device + "/"
 	p.topics.breath, p.topics.trend, p.topics.event = base+"breath", base+"trend", base+"event"
 	p.topics.active, p.topics.status, p.topics.ack = base+"active", base+"status", base+"ack"
@@ -161,6 +176,8 @@ func New(cfg Config) (*Publisher, error) {
 	}
 	p.client = client
 	p.statusDue.Store(true)
+	p.setActive(nil) // this run's rules start with none raised
+	go p.persistEvents()
 	p.wg.Go(p.sendQueued)
 	p.wg.Go(p.sendRecords)
 	p.wg.Go(p.statusTicks)
@@ -185,7 +202,7 @@ func (p *Publisher) options(opts *mqtt.ClientOptions) {
 		SetAutoReconnect(true).SetMaxReconnectInterval(15*time.Second).
 		SetConnectTimeout(5*time.Second).SetKeepAlive(15*time.Second).SetPingTimeout(5*time.Second).
 		SetWriteTimeout(5*time.Second).SetStore(mqtt.NewOrderedMemoryStore()).
-		SetBinaryWill(p.topics.status, p.statusPayload("offline", "connection lost"), 1, true)
+		SetBinaryWill(p.topics.status, payload.Will(cfg.Device, "connection lost"), 1, true)
 	opts.SetOnConnectHandler(func(c mqtt.Client) {
 		cfg.Log.Info().Str("broker", Redact(cfg.Broker)).Msg("connected to the MQTT broker")
 		p.statusDue.Store(true)
@@ -282,15 +299,51 @@ func (p *Publisher) offer(r record) {
 
 // Event queues the event and the new set of active rules durably.
 func (p *Publisher) Event(ev *alerts.Event, active []alerts.Active) {
-	if err := p.sp.push(p.topics.event, payload.Event(ev)); err != nil {
-		p.cfg.Log.Error().Err(err).Str("event", ev.ID).Msg("could not queue the event on disk")
+	it := eventItem{ev: *ev, active: append([]alerts.Active(nil), active...)}
+	p.evMu.Lock()
+	p.evQueue = append(p.evQueue, it)
+	p.evMu.Unlock()
+	select {
+	case p.evKick <- struct{}{}:
+	default:
 	}
+}
+
+// persistEvents writes the events handed over by Event to the durable
+// queue, in order, with the active set after each, until Close has handed
+// over the last.
+func (p *Publisher) persistEvents() {
+	defer close(p.evDone)
+	for {
+		p.evMu.Lock()
+		items := p.evQueue
+		p.evQueue = nil
+		p.evMu.Unlock()
+		for i := range items {
+			it := &items[i]
+			if err := p.sp.push(p.topics.event, payload.Event(&it.ev)); err != nil {
+				p.cfg.Log.Error().Err(err).Str("event", it.ev.ID).Msg("could not queue the event on disk")
+			}
+			p.setActive(it.active)
+		}
+		if len(items) > 0 {
+			p.nudge()
+			continue
+		}
+		if p.stopped.Load() {
+			return
+		}
+		<-p.evKick
+	}
+}
+
+// setActive makes active the retained set of raised rules to deliver.
+func (p *Publisher) setActive(active []alerts.Active) {
 	payload := payload.Active(p.cfg.Device, p.activeSeq.Add(1), active, time.Now())
 	p.lastActive.Store(&payload)
 	if err := p.sp.setActive(payload); err != nil {
 		p.cfg.Log.Error().Err(err).Msg("could not keep the active rules on disk")
 	}
-	p.nudge()
 }
 
 // sendQueued delivers the durable queue in order, then the active rules,
@@ -387,6 +440,11 @@ func (p *Publisher) statusTicks() {
 // status, and disconnects. It is safe to call once.
 func (p *Publisher) Close(ctx context.Context) error {
 	p.stopped.Store(true)
+	select {
+	case p.evKick <- struct{}{}:
+	default:
+	}
+	<-p.evDone // every event handed over is in the queue
 	for p.sp.depth() > 0 || len(p.q0) > 0 {
 		p.nudge()
 		select {
@@ -401,6 +459,10 @@ out:
 	p.wg.Wait()
 	var err error
 	if p.client.IsConnectionOpen() {
+		// a stopped device has no current trend and no raised rules: an
+		// empty retained message removes them from the broker
+		p.client.Publish(p.topics.trend, 1, true, []byte{})
+		p.client.Publish(p.topics.active, 1, true, []byte{})
 		tok := p.client.Publish(p.topics.status, 1, true, p.statusPayload("offline", "stopped"))
 		select {
 		case <-tok.Done():
@@ -413,8 +475,11 @@ out:
 	}
 	p.client.Disconnect(250)
 	p.sp.close()
-	if left > 0 {
-		err = errors.Join(err, fmt.Errorf("%d queued messages not delivered; they stay in the state directory", left))
+	switch {
+	case left > 0 && p.cfg.StateDir != "":
+		err = errors.Join(err, fmt.Errorf("%d queued messages not delivered; they stay in the state directory %s for the next start", left, p.cfg.StateDir))
+	case left > 0:
+		err = errors.Join(err, fmt.Errorf("%d queued messages not delivered and lost: there is no state directory (set state_dir or --state-dir to keep them)", left))
 	}
 	return err
 }

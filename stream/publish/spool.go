@@ -18,7 +18,7 @@ import (
 //
 //	events.log   one JSON line per event message, appended and synced
 //	events.done  the sequence number of the last one the broker acknowledged
-//	active.json  the latest active-rules payload
+//	active.json  the latest active-rules payload not yet delivered
 //
 // A message may be delivered twice (after a crash between the broker's
 // acknowledgement and events.done); every payload carries its id and
@@ -42,6 +42,10 @@ type spoolMsg struct {
 	Topic   string          `json:"topic"`
 	Payload json.RawMessage `json:"payload"`
 }
+
+// fileMode is the mode of every file of the queue: breathd's user reads
+// and writes, its group reads.
+const fileMode = 0o640
 
 // maxPending bounds the queue in memory and on disk, below MQTT's 65 535
 // message ids; beyond it the oldest events are dropped and counted.
@@ -84,10 +88,11 @@ func openSpool(dir string) (*spool, error) {
 		}
 		f.Close()
 	}
-	if b, err := os.ReadFile(filepath.Join(dir, "active.json")); err == nil && json.Valid(b) {
-		s.active = b // publish the last known state again: it is retained
-	}
-	s.file, err = os.OpenFile(filepath.Join(dir, "events.log"), os.O_WRONLY|os.O_CREATE|os.O_APPEND, 0o640)
+	// an earlier run's active set is not this run's: its rules may have
+	// changed, and its events are acknowledged by ids of that run; the
+	// publisher starts from its own (empty) set
+	os.Remove(filepath.Join(dir, "active.json"))
+	s.file, err = os.OpenFile(filepath.Join(dir, "events.log"), os.O_WRONLY|os.O_CREATE|os.O_APPEND, fileMode)
 	if err != nil {
 		return nil, fmt.Errorf("state directory: %w", err)
 	}
@@ -134,7 +139,7 @@ func (s *spool) setActive(payload []byte) error {
 
 func writeFileSync(path string, data []byte) error {
 	tmp := path + ".tmp"
-	f, err := os.Create(tmp)
+	f, err := os.OpenFile(tmp, os.O_WRONLY|os.O_CREATE|os.O_TRUNC, fileMode)
 	if err != nil {
 		return err
 	}
