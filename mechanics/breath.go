@@ -12,6 +12,7 @@ package mechanics
 import (
 	"math"
 	"strings"
+	"time"
 )
 
 // Flags mark a breath's conditions.
@@ -72,6 +73,9 @@ type Breath struct {
 	Seq    int64   // breath number since the device started
 	TStart float64 // stream time of the inspiration start, s
 	TEnd   float64 // stream time of the next inspiration start, s
+	// At is the wall-clock time of TStart, from the stream's clock (set by
+	// the device loop, not by the segmenter); zero when it is not known.
+	At time.Time
 
 	Ti, Te float64 // inspiratory (including any pause) and expiratory time, s
 	RR     float64 // rate, 1/min

@@ -308,7 +308,7 @@ const runBatch = 256
 // sample is the analysis of one sample.
 func (l *loop) sample(s *lines.Sample) {
 	if b := l.seg.Add(s.T, s.Paw, s.Flow, s.Gap); b != nil {
-		l.breath(b)
+		l.breath(b, s.T)
 	}
 	if s.T >= l.nextTick || s.Gap {
 		l.tick(s)
@@ -399,7 +399,10 @@ func (l *loop) decodeAhead(full, free chan *batch) {
 	}
 }
 
-func (l *loop) breath(b *mechanics.Breath) {
+// breath takes a completed breath; cur is the stream time of the sample
+// being analysed.
+func (l *loop) breath(b *mechanics.Breath, cur float64) {
+	b.At = l.wall(b.TStart, cur)
 	l.win.Add(b)
 	l.lastBreathT = b.TEnd
 	if l.cfg.Sink != nil {
@@ -407,13 +410,16 @@ func (l *loop) breath(b *mechanics.Breath) {
 	}
 	l.emu.Lock()
 	l.lastT = b.TEnd
-	l.deliver(l.eng.Breath(b, l.win, l.wall(b.TEnd)))
+	l.deliver(l.eng.Breath(b, l.win, l.wall(b.TEnd, cur)))
 	l.emu.Unlock()
 }
 
-// wall is the wall-clock time of stream time t: from the recording's clock
-// directives when it has them, else now.
-func (l *loop) wall(t float64) time.Time {
+// wall is the wall-clock time of stream time t, cur being the stream time
+// of the sample being analysed: from the recording's clock directives when
+// it has them; on a live source, when the sample at t was read (now, less
+// the stream time since); else unknown (zero): a recording without a
+// clock has no wall-clock time, and the time of its analysis is not one.
+func (l *loop) wall(t, cur float64) time.Time {
 	var a lines.Clock
 	if l.ahead != nil {
 		a = l.ahead.wall // decoding ahead: the decoder belongs to its goroutine
@@ -423,7 +429,10 @@ func (l *loop) wall(t float64) time.Time {
 	if w, ok := a.At(t); ok {
 		return w
 	}
-	return time.Now()
+	if l.cfg.Live {
+		return time.Now().Add(-time.Duration((cur - t) * float64(time.Second)))
+	}
+	return time.Time{}
 }
 
 // counts are the decoder's counters as of the sample being analysed.
@@ -489,7 +498,7 @@ func (l *loop) tick(s *lines.Sample) {
 	}
 	l.emu.Lock()
 	l.lastT = s.T
-	l.deliver(l.eng.Tick(tech, s.T, l.wall(s.T)))
+	l.deliver(l.eng.Tick(tech, s.T, l.wall(s.T, s.T)))
 	l.emu.Unlock()
 }
 

@@ -5,14 +5,16 @@ import (
 	"io"
 	"math"
 	"strconv"
+	"time"
 
 	"breathd/mechanics"
 	"breathd/stream"
 )
 
 // CSVWriter writes one row per breath: seq, the fields of
-// mechanics.Fields() with their Decimals, and flags (space-separated words), with a header
-// first; a null value is an empty cell. Safe for one goroutine.
+// mechanics.Fields() with their Decimals, flags (space-separated words)
+// and at (the wall-clock time of the breath's start, RFC 3339), with a
+// header first; a null value is an empty cell. Safe for one goroutine.
 type CSVWriter struct {
 	w    *bufio.Writer
 	buf  []byte
@@ -31,7 +33,7 @@ func NewCSVWriter(w io.Writer) *CSVWriter {
 		c.w.WriteString("," + f.Name)
 		c.dec = append(c.dec, f.Decimals)
 	}
-	c.w.WriteString(",flags\n")
+	c.w.WriteString(",flags,at\n")
 	return c
 }
 
@@ -47,6 +49,10 @@ func (c *CSVWriter) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
 	}
 	buf = append(buf, ',')
 	buf = b.Flags.AppendWords(buf, ' ')
+	buf = append(buf, ',')
+	if !b.At.IsZero() {
+		buf = b.At.UTC().AppendFormat(buf, time.RFC3339Nano)
+	}
 	buf = append(buf, '\n')
 	c.w.Write(buf)
 	c.buf = buf

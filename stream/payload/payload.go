@@ -32,6 +32,18 @@ func (n num) MarshalJSON() ([]byte, error) {
 	return json.Marshal(math.Round(f*1e4) / 1e4)
 }
 
+// stamp is a wall-clock time as RFC 3339 in UTC, or null when it is not
+// known (the zero time).
+type stamp time.Time
+
+// MarshalJSON encodes the time, or null.
+func (t stamp) MarshalJSON() ([]byte, error) {
+	if time.Time(t).IsZero() {
+		return []byte("null"), nil
+	}
+	return json.Marshal(time.Time(t).UTC().Format(time.RFC3339Nano))
+}
+
 // eventPayload is an event transition as published and as written by
 // analyze --events.
 type eventPayload struct {
@@ -49,7 +61,7 @@ type eventPayload struct {
 	High       num               `json:"high"`
 	Latching   bool              `json:"latching"`
 	T          num               `json:"t"`
-	At         string            `json:"at"`
+	At         stamp             `json:"at"`
 }
 
 // Event encodes an event as its JSON payload (one line, no newline).
@@ -57,19 +69,20 @@ func Event(ev *alerts.Event) []byte {
 	p := eventPayload{V: Version, ID: ev.ID, Seq: ev.Seq, Device: ev.Device, Rule: ev.Rule,
 		Transition: ev.Transition, Level: ev.Level, Field: ev.Field, Value: num(ev.Value),
 		Threshold: num(ev.Threshold), Low: num(ev.Low), High: num(ev.High), Latching: ev.Latching,
-		T: num(ev.T), At: ev.At.UTC().Format(time.RFC3339Nano)}
+		T: num(ev.T), At: stamp(ev.At)}
 	b, _ := json.Marshal(p)
 	return b
 }
 
-// Breath encodes a breath record: "v", device, "at", and the fields of
+// Breath encodes a breath record: "v", device, "at" (the wall-clock time
+// of its start, b.At; null when unknown), and the fields of
 // mechanics.Fields() under their names (null when not computed), seq and
 // flags.
-func Breath(device string, b *mechanics.Breath, at time.Time) []byte {
+func Breath(device string, b *mechanics.Breath) []byte {
 	var vals [mechanics.NumFields]float64
 	v := b.Values(vals[:0])
 	m := make(map[string]any, len(v)+5)
-	m["v"], m["device"], m["seq"], m["at"] = Version, device, b.Seq, at.UTC().Format(time.RFC3339Nano)
+	m["v"], m["device"], m["seq"], m["at"] = Version, device, b.Seq, stamp(b.At)
 	for i, f := range mechanics.Fields() {
 		m[f.Name] = num(v[i])
 	}
@@ -111,7 +124,7 @@ func Trend(device string, seq int64, tr *mechanics.Trend, at time.Time) []byte {
 		V                int                    `json:"v"`
 		Device           string                 `json:"device"`
 		Seq              int64                  `json:"seq"`
-		At               string                 `json:"at"`
+		At               stamp                  `json:"at"`
 		T                num                    `json:"t"`
 		Breaths          int                    `json:"breaths"`
 		Span             num                    `json:"span"`
@@ -121,7 +134,7 @@ func Trend(device string, seq int64, tr *mechanics.Trend, at time.Time) []byte {
 		ComplianceChange num                    `json:"compliance_change"`
 		NetFlow          num                    `json:"net_flow"`
 		Rise             risePayload            `json:"rise"`
-	}{Version, device, seq, at.UTC().Format(time.RFC3339Nano), num(tr.At), tr.N, num(tr.Span), fields,
+	}{Version, device, seq, stamp(at), num(tr.At), tr.N, num(tr.Span), fields,
 		num(tr.CSlope), num(tr.DPSlope), num(tr.CChange), num(tr.NetFlow),
 		risePayload{r.Cause, r.Method, num(r.PeakRise), num(r.ResistiveRise), num(r.ElasticRise), r.BaselineBreaths}})
 	return out
@@ -133,7 +146,7 @@ type activePayload struct {
 	Field    string       `json:"field"`
 	EventID  string       `json:"event_id"`
 	Since    num          `json:"since_t"`
-	SinceAt  string       `json:"since_at"`
+	SinceAt  stamp        `json:"since_at"`
 	Value    num          `json:"value"`
 	Acked    bool         `json:"acknowledged"`
 	Latching bool         `json:"latching"`
@@ -144,15 +157,15 @@ func Active(device string, seq int64, active []alerts.Active, at time.Time) []by
 	list := make([]activePayload, 0, len(active))
 	for _, a := range active {
 		list = append(list, activePayload{a.Rule, a.Level, a.Field, a.EventID, num(a.Since),
-			a.SinceAt.UTC().Format(time.RFC3339Nano), num(a.Value), a.Acked, a.Latching})
+			stamp(a.SinceAt), num(a.Value), a.Acked, a.Latching})
 	}
 	out, _ := json.Marshal(struct {
 		V      int             `json:"v"`
 		Device string          `json:"device"`
 		Seq    int64           `json:"seq"`
-		At     string          `json:"at"`
+		At     stamp           `json:"at"`
 		Active []activePayload `json:"active"`
-	}{Version, device, seq, at.UTC().Format(time.RFC3339Nano), list})
+	}{Version, device, seq, stamp(at), list})
 	return out
 }
 
@@ -184,11 +197,11 @@ func Status(device string, seq int64, state, reason, version string, st stream.S
 		Seq      int64          `json:"seq"`
 		State    string         `json:"state"`
 		Reason   string         `json:"reason,omitempty"`
-		At       string         `json:"at"`
+		At       stamp          `json:"at"`
 		Version  string         `json:"version,omitempty"`
 		Advisory string         `json:"advisory"`
 		Counters map[string]any `json:"counters"`
-	}{Version, device, seq, state, reason, at.UTC().Format(time.RFC3339Nano), version, stream.Advisory, counters})
+	}{Version, device, seq, state, reason, stamp(at), version, stream.Advisory, counters})
 	return out
 }
 

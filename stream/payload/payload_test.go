@@ -34,7 +34,7 @@ func breath(seq int64) *mechanics.Breath {
 	return &mechanics.Breath{Seq: seq, TStart: t, TEnd: t + 4, Ti: 1, Te: 3, RR: 15, IE: 3, VTi: 500, VTe: 498, Leak: 0.4,
 		PPeak: 30, PPlat: 25, PEEP: 5, PMean: 10.6, DP: 20, Cstat: 25, Cdyn: 20, Rinsp: 5,
 		FitR: 5, FitC: 25, FitP0: 5, FitR2: 0.9991, Tau: 0.125, MP: 14.7, SI: 1.01, E2Pct: 2.5, PauseDecay: 0.1,
-		PEEPi: 0, VTPBW: math.NaN(), EEF: -0.3}
+		PEEPi: 0, VTPBW: math.NaN(), EEF: -0.3, At: at.Add(time.Duration(t) * time.Second)}
 }
 
 // golden compares got with testdata/name, or writes it with -update. The
@@ -78,12 +78,19 @@ func golden(t *testing.T, name string, got []byte) {
 }
 
 func TestBreathGolden(t *testing.T) {
-	golden(t, "breath.json", Breath("bed1", breath(12), at))
+	golden(t, "breath.json", Breath("bed1", breath(12)))
 	b := breath(13)
 	b.PPlat, b.DP, b.Cstat, b.Rinsp, b.PauseDecay, b.SI = math.NaN(), math.NaN(), math.NaN(), math.NaN(), math.NaN(), math.NaN()
 	b.FitR2 = 0.81
 	b.Flags = mechanics.FlagNoPlateau | mechanics.FlagActiveEffort | mechanics.FlagFitUnreliable
-	golden(t, "breath_active.json", Breath("bed1", b, at))
+	golden(t, "breath_active.json", Breath("bed1", b))
+	// without a clock, no wall-clock time: null, never the time of the run
+	b.At = time.Time{}
+	var m map[string]any
+	json.Unmarshal(Breath("bed1", b), &m)
+	if v, ok := m["at"]; !ok || v != nil {
+		t.Errorf("unknown time encoded as %v", v)
+	}
 }
 
 func TestTrendGolden(t *testing.T) {
@@ -155,7 +162,7 @@ func TestCSV(t *testing.T) {
 	c.Flush()
 	rows := strings.Split(strings.TrimSpace(buf.String()), "\n")
 	head, row := strings.Split(rows[0], ","), strings.Split(rows[1], ",")
-	if len(head) != mechanics.NumFields+2 || head[0] != "seq" || head[len(head)-1] != "flags" || len(row) != len(head) {
+	if len(head) != mechanics.NumFields+3 || head[0] != "seq" || head[len(head)-2] != "flags" || head[len(head)-1] != "at" || len(row) != len(head) {
 		t.Fatalf("header %v, row %v", head, row)
 	}
 	for i, f := range mechanics.Fields() {

@@ -284,8 +284,11 @@ func (p *Publisher) Breath(_ string, b *mechanics.Breath, w *mechanics.Window) {
 	if p.stopped.Load() {
 		return
 	}
-	at := time.Now()
-	p.offer(record{topic: p.topics.breath, qos: p.cfg.BreathQoS, payload: payload.Breath(p.cfg.Device, b, at)})
+	at := b.At // the trend is as of the breath's end
+	if !at.IsZero() {
+		at = at.Add(time.Duration((b.TEnd - b.TStart) * float64(time.Second)))
+	}
+	p.offer(record{topic: p.topics.breath, qos: p.cfg.BreathQoS, payload: payload.Breath(p.cfg.Device, b)})
 	p.offer(record{topic: p.topics.trend, retain: true, payload: payload.Trend(p.cfg.Device, b.Seq, w.Trend(), at)})
 }
 
