@@ -169,9 +169,19 @@ func Active(device string, seq int64, active []alerts.Active, at time.Time) []by
 	return out
 }
 
-// Status encodes the device's status: online or offline, its counters
-// and the advisory notice.
-func Status(device string, seq int64, state, reason, version string, st stream.Status, pc Counters, at time.Time) []byte {
+// Source says which breathd publishes a device: its run, host, start and
+// version. Two sources for one device on one broker are a mistake that
+// the status lets the publishers see.
+type Source struct {
+	Run     string    // random, made at start
+	Host    string    // the machine's name
+	Since   time.Time // when the run started
+	Version string    // breathd's version
+}
+
+// Status encodes the device's status: online or offline, its source, its
+// counters and the advisory notice.
+func Status(device string, seq int64, state, reason string, src Source, st stream.Status, pc Counters, at time.Time) []byte {
 	bad := make(map[string]int64, lines.NumCauses)
 	for i, n := range st.Counts.Bad {
 		bad[lines.Cause(i).String()] = n
@@ -198,10 +208,13 @@ func Status(device string, seq int64, state, reason, version string, st stream.S
 		State    string         `json:"state"`
 		Reason   string         `json:"reason,omitempty"`
 		At       stamp          `json:"at"`
+		Run      string         `json:"run,omitempty"`
+		Host     string         `json:"host,omitempty"`
+		Since    stamp          `json:"since"`
 		Version  string         `json:"version,omitempty"`
 		Advisory string         `json:"advisory"`
 		Counters map[string]any `json:"counters"`
-	}{Version, device, seq, state, reason, stamp(at), version, stream.Advisory, counters})
+	}{Version, device, seq, state, reason, stamp(at), src.Run, src.Host, stamp(src.Since), src.Version, stream.Advisory, counters})
 	return out
 }
 

@@ -143,11 +143,12 @@ func TestStatusGolden(t *testing.T) {
 		Health:   device.Health{Connected: true, Outages: 1}, HasHealth: true}
 	st.Counts.Bad[lines.CauseNotNumber] = 1
 	pc := Counters{QueueDepth: 0, Sent: 30, Reconnects: 1, Acks: 1}
-	golden(t, "status.json", Status("bed1", 5, "online", "", "v0.9.0", st, pc, at))
-	golden(t, "status_offline.json", Status("bed1", 6, "offline", "stopped", "v0.9.0", stream.Status{Device: "bed1"}, Counters{}, at))
+	src := Source{Run: "4f2a91c0", Host: "board7", Since: at.Add(-time.Hour), Version: "v0.9.0"}
+	golden(t, "status.json", Status("bed1", 5, "online", "", src, st, pc, at))
+	golden(t, "status_offline.json", Status("bed1", 6, "offline", "stopped", src, stream.Status{Device: "bed1"}, Counters{}, at))
 	golden(t, "status_will.json", Will("bed1", "connection lost"))
 	var m struct{ Advisory string }
-	json.Unmarshal(Status("bed1", 1, "online", "", "", st, pc, at), &m)
+	json.Unmarshal(Status("bed1", 1, "online", "", Source{}, st, pc, at), &m)
 	if m.Advisory != stream.Advisory || !strings.Contains(m.Advisory, "not a medical device") {
 		t.Errorf("advisory %q", m.Advisory)
 	}

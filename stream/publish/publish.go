@@ -6,11 +6,15 @@ package publish
 
 import (
 	"context"
+	"crypto/rand"
+	"encoding/hex"
 	"encoding/json"
 	"errors"
 	"fmt"
 	"os"
+	"path/filepath"
 	"regexp"
+	"strconv"
 	"strings"
 	"sync"
 	"sync/atomic"
@@ -23,6 +27,7 @@ import (
 
 	mqtt "github.com/eclipse/paho.mqtt.golang"
 	"github.com/rs/zerolog"
+	"golang.org/x/sys/unix"
 )
 
 // Config configures one device's MQTT publisher.
@@ -103,6 +108,11 @@ type Publisher struct {
 	ackFn      atomic.Pointer[func(id string) error]
 	lastActive atomic.Pointer[[]byte]
 
+	src      payload.Source // this run, in the status
+	lock     *os.File       // held while publishing the device from this machine
+	conflict atomic.Bool    // another breathd publishes the device: this one stopped
+	warned   atomic.Bool    // the other one was reported
+
 	// events handed over by the device loop, persisted in order by
 	// persistEvents so that no disk write happens on the sample path
 	evMu    sync.Mutex
@@ -148,12 +158,21 @@ func New(cfg Config) (*Publisher, error) {
 	if err != nil {
 		return nil, err
 	}
-	sp, err := openSpool(cfg.StateDir)
+	lock, err := lockDevice(cfg)
 	if err != nil {
 		return nil, err
 	}
+	sp, err := openSpool(cfg.StateDir)
+	if err != nil {
+		unlock(lock)
+		return nil, err
+	}
 	p := &Publisher{cfg: cfg, sp: sp, q0: make(chan record, breathQueue), kick: make(chan struct{}, 1), done: make(chan struct{}),
-		evKick: make(chan struct{}, 1), evDone: make(chan struct{})}
+		evKick: make(chan struct{}, 1), evDone: make(chan struct{}), lock: lock}
+	host, _ := os.Hostname()
+	run := make([]byte, 4)
+	rand.Read(run)
+	p.src = payload.Source{Run: hex.EncodeToString(run), Host: host, Since: time.Now(), Version: cfg.Version}
 	base := cfg.Root + "/" + cfg.Device + "/"
 	p.topics.breath, p.topics.trend, p.topics.event = base+"breath", base+"trend", base+"event"
 	p.topics.active, p.topics.status, p.topics.ack = base+"active", base+"status", base+"ack"
@@ -165,6 +184,7 @@ func New(cfg Config) (*Publisher, error) {
 		err := tok.Error()
 		if cfg.Dial.Refused(err) {
 			sp.close()
+			unlock(lock)
 			return nil, cfg.Dial.CredentialsRefused()
 		}
 		client.Disconnect(0)
@@ -210,6 +230,7 @@ func (p *Publisher) options(opts *mqtt.ClientOptions) {
 			p.sp.setActive(*last)
 		}
 		c.Subscribe(p.topics.ack, 1, p.onAck)
+		c.Subscribe(p.topics.status, 1, p.onStatus)
 		p.nudge()
 	})
 	opts.SetConnectionLostHandler(func(_ mqtt.Client, err error) {
@@ -281,7 +302,7 @@ func (p *Publisher) onAck(_ mqtt.Client, m mqtt.Message) {
 
 // Breath queues the breath record and the trend. It never blocks.
 func (p *Publisher) Breath(_ string, b *mechanics.Breath, w *mechanics.Window) {
-	if p.stopped.Load() {
+	if p.stopped.Load() || p.conflict.Load() {
 		return
 	}
 	at := b.At // the trend is as of the breath's end
@@ -461,7 +482,9 @@ out:
 	close(p.done)
 	p.wg.Wait()
 	var err error
-	if p.client.IsConnectionOpen() {
+	if p.conflict.Load() {
+		err = fmt.Errorf("device %s was not published: another breathd publishes it on this broker", p.cfg.Device)
+	} else if p.client.IsConnectionOpen() {
 		// a stopped device has no current trend and no raised rules: an
 		// empty retained message removes them from the broker
 		p.client.Publish(p.topics.trend, 1, true, []byte{})
@@ -478,6 +501,7 @@ out:
 	}
 	p.client.Disconnect(250)
 	p.sp.close()
+	unlock(p.lock)
 	switch {
 	case left > 0 && p.cfg.StateDir != "":
 		err = errors.Join(err, fmt.Errorf("%d queued messages not delivered; they stay in the state directory %s for the next start", left, p.cfg.StateDir))
@@ -499,5 +523,65 @@ func (p *Publisher) statusPayload(state, reason string) []byte {
 	if p.cfg.Status != nil {
 		st = p.cfg.Status()
 	}
-	return payload.Status(p.cfg.Device, p.statusSeq.Add(1), state, reason, p.cfg.Version, st, p.Counters(), time.Now())
+	return payload.Status(p.cfg.Device, p.statusSeq.Add(1), state, reason, p.src, st, p.Counters(), time.Now())
+}
+
+// onStatus watches the device's status topic for another breathd
+// publishing the same device: a live (not retained) online status of
+// another run. The one that started later stops publishing and says so;
+// the other warns once. A retained status is not taken as proof: it may
+// outlive its publisher until the broker sends the will.
+func (p *Publisher) onStatus(_ mqtt.Client, m mqtt.Message) {
+	if m.Retained() {
+		return
+	}
+	var st struct {
+		State, Run, Host string
+		Since            time.Time
+	}
+	if json.Unmarshal(m.Payload(), &st) != nil || st.State != "online" || st.Run == "" || st.Run == p.src.Run {
+		return
+	}
+	newer := st.Since.Before(p.src.Since) || (st.Since.Equal(p.src.Since) && st.Run < p.src.Run)
+	if newer && p.conflict.CompareAndSwap(false, true) {
+		p.cfg.Log.Error().Str("other_run", truncate(st.Run, 16)).Str("other_host", truncate(st.Host, 64)).
+			Msgf("device %s is already published on this broker by another breathd (run %s on host %s): this one stops publishing it; give each device its own id",
+				p.cfg.Device, truncate(st.Run, 16), truncate(st.Host, 64))
+		go p.client.Disconnect(250) // not from paho's handler
+		return
+	}
+	if !newer && p.warned.CompareAndSwap(false, true) {
+		p.cfg.Log.Warn().Str("other_run", truncate(st.Run, 16)).Str("other_host", truncate(st.Host, 64)).
+			Msgf("another breathd (run %s on host %s) started publishing device %s on this broker; it should stop, this one goes on",
+				truncate(st.Run, 16), truncate(st.Host, 64), p.cfg.Device)
+	}
+}
+
+// lockDevice takes a lock for publishing the device to this broker from
+// this machine, so that two breathd processes here cannot share one
+// client id and session; it says who holds it.
+func lockDevice(cfg Config) (*os.File, error) {
+	name := "breathd-" + sanitize(cfg.Broker+"-"+cfg.Root+"-"+cfg.Device) + ".lock"
+	path := filepath.Join(os.TempDir(), name)
+	f, err := os.OpenFile(path, os.O_RDWR|os.O_CREATE, 0o600)
+	if err != nil {
+		return nil, nil // no lock here: the broker-side check remains
+	}
+	if err := unix.Flock(int(f.Fd()), unix.LOCK_EX|unix.LOCK_NB); err != nil {
+		b := make([]byte, 32)
+		n, _ := f.ReadAt(b, 0)
+		f.Close()
+		return nil, fmt.Errorf("device %s is already published to %s by another breathd on this machine (pid %s): give each device its own id",
+			cfg.Device, Redact(cfg.Broker), strings.TrimSpace(string(b[:n])))
+	}
+	f.Truncate(0)
+	f.WriteAt([]byte(strconv.Itoa(os.Getpid())+"\n"), 0)
+	return f, nil
+}
+
+func unlock(f *os.File) {
+	if f != nil {
+		os.Remove(f.Name())
+		f.Close() // closing releases the lock
+	}
 }

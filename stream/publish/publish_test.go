@@ -141,7 +141,8 @@ func TestPublishToEmbeddedBroker(t *testing.T) {
 
 	var breath map[string]any
 	json.Unmarshal(sub.last("breathd/bed9/breath").Payload(), &breath)
-	if breath["v"] != 1.0 || breath["pplat"] == nil || breath["seq"] != float64(st.Breaths) || breath["at"] == nil {
+	// a stream without a clock, read as fast as possible: no wall-clock time
+	if at, ok := breath["at"]; breath["v"] != 1.0 || breath["pplat"] == nil || breath["seq"] != float64(st.Breaths) || !ok || at != nil {
 		t.Errorf("breath payload %v", breath)
 	}
 	var ev map[string]any
@@ -453,4 +454,58 @@ func TestDialAddresses(t *testing.T) {
 			t.Errorf("%s: %s, %v; want %s", in, got, err, want)
 		}
 	}
+}
+
+// TestOneDeviceOnePublisher: a second publisher of the same device to the
+// same broker from this machine is refused at once, saying who holds it;
+// from another machine (another client id and address) the one that
+// started later stops publishing when it sees the other's live status and
+// says so in one line, and the earlier one goes on. Common practice, no
+// source.
+func TestOneDeviceOnePublisher(t *testing.T) {
+	b := startTestBroker(t)
+	first, err := New(Config{Dial: publisherDial(b), Device: "dup", StatusEvery: 50 * time.Millisecond, Log: zerolog.Nop()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer first.Close(context.Background())
+	_, err = New(Config{Dial: publisherDial(b), Device: "dup", Log: zerolog.Nop()})
+	if err == nil || !strings.Contains(err.Error(), "already published") || !strings.Contains(err.Error(), fmt.Sprintf("pid %d", os.Getpid())) {
+		t.Errorf("second publisher here: %v", err)
+	}
+	// "another machine": the broker by another name, another client id
+	var log syncLog
+	d := publisherDial(b)
+	d.Broker = strings.Replace(d.Broker, "127.0.0.1", "localhost", 1)
+	second, err := New(Config{Dial: d, Device: "dup", ClientID: "breathd-other-board-dup", StatusEvery: 50 * time.Millisecond,
+		Log: zerolog.New(&log)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer second.Close(context.Background())
+	waitUntil(t, "the later publisher to stop", func() bool { return second.conflict.Load() })
+	if first.conflict.Load() {
+		t.Error("the earlier publisher stopped too")
+	}
+	if !strings.Contains(log.String(), "device dup is already published on this broker by another breathd (run "+first.src.Run) {
+		t.Errorf("the later one said:\n%s", log.String())
+	}
+}
+
+// syncLog is a log buffer written by the publisher's goroutines.
+type syncLog struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+func (l *syncLog) Write(p []byte) (int, error) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.Write(p)
+}
+
+func (l *syncLog) String() string {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.String()
 }
