@@ -530,7 +530,10 @@ func (p *Publisher) statusPayload(state, reason string) []byte {
 // publishing the same device: a live (not retained) online status of
 // another run. The one that started later stops publishing and says so;
 // the other warns once. A retained status is not taken as proof: it may
-// outlive its publisher until the broker sends the will.
+// outlive its publisher until the broker sends the will. Two publishers
+// given the same client id (a client_id configured alike on two machines)
+// share one session and take it from each other: each then receives only
+// its own status, and this check cannot see the other.
 func (p *Publisher) onStatus(_ mqtt.Client, m mqtt.Message) {
 	if m.Retained() {
 		return
