@@ -159,10 +159,17 @@ type Decoder struct {
 
 	resolved bool
 	delim    byte
-	kinds    [maxColumns]colKind
-	ncols    int
-	hasT     bool
-	hasVol   bool
+	// how the columns were resolved: autoDelim when the delimiter was
+	// detected, fromHeader when a header named the columns; misses counts
+	// field-count misses since the last good sample (at missAt samples),
+	// which make a detected delimiter be looked for again
+	autoDelim, fromHeader bool
+	misses                int
+	missAt                int64
+	kinds                 [maxColumns]colKind
+	ncols                 int
+	hasT                  bool
+	hasVol                bool
 	// plain: every column is one we use, and the delimiter is not runs
 	// of blanks; the batch path takes only such lines (plainKinds are
 	// their kinds)
@@ -323,6 +330,9 @@ func (d *Decoder) Decode(s *Sample) error {
 			case errors.Is(err, errNotHeader):
 				d.index++
 				return d.bad(CauseNotNumber, -1) // wait for a header or data
+			case errors.Is(err, errCannotTell):
+				d.index++
+				return d.bad(CauseFieldCount, -1) // wait for a line that can tell
 			case errors.Is(err, errBadHeader):
 				d.headerErr = err
 				return d.bad(CauseBadHeader, -1)
@@ -342,6 +352,16 @@ func (d *Decoder) Decode(s *Sample) error {
 
 func (d *Decoder) bad(c Cause, field int) error {
 	d.counts.Bad[c]++
+	if c == CauseFieldCount && d.resolved && d.autoDelim && !d.fromHeader {
+		if d.missAt != d.counts.Samples {
+			d.misses, d.missAt = 0, d.counts.Samples
+		}
+		if d.misses++; d.misses >= resyncLines {
+			// the delimiter was taken from a line that misled (noise on a
+			// port opened mid-line): look again on the next line
+			d.resolved, d.misses = false, 0
+		}
+	}
 	d.lineErr = LineError{Line: d.counts.Lines, Cause: c, Field: field}
 	return &d.lineErr
 }
@@ -436,7 +456,11 @@ var errBadHeader = errors.New("unusable header")
 func (d *Decoder) resolve(line []byte) (header bool, err error) {
 	f := d.format
 	d.delim, _ = parseDelimiter(f.Delimiter)
-	if d.delim == 0 {
+	d.autoDelim = d.delim == 0
+	if d.autoDelim {
+		if !mayTellDelimiter(line) {
+			return false, errCannotTell
+		}
 		d.delim = detectDelimiter(line)
 	}
 	names, numeric := d.splitNames(line)
@@ -482,8 +506,19 @@ func (d *Decoder) resolve(line []byte) (header bool, err error) {
 		d.plainKinds[i] = d.kinds[i]
 		d.plain = d.kinds[i] != kindIgnore
 	}
-	d.resolved = true
+	d.resolved, d.fromHeader, d.misses = true, !numeric, 0
 	return !numeric, nil
+}
+
+// errCannotTell marks a first line with a single field (a lone number, as
+// when a port is opened in the middle of a line): it cannot tell the
+// delimiter.
+var errCannotTell = errors.New("cannot tell the delimiter")
+
+// mayTellDelimiter reports whether a line has more than one field by some
+// delimiter.
+func mayTellDelimiter(line []byte) bool {
+	return bytes.ContainsAny(line, ";,\t ")
 }
 
 func namesKnownColumn(names []string) bool {

@@ -392,6 +392,13 @@ func FuzzDecode(f *testing.F) {
 	f.Add([]byte("t,paw,flow\n0,5,0\n0.01,6,30\n"), "")
 	f.Add([]byte("# breathd format columns=paw,flow rate_hz=50\n1 2\n3 4\n"), "")
 	f.Add([]byte("0;1;2\r\n0.1;nan;3\r\n"), "auto")
+	// a port opened mid-line: a lone number first (issue 16)
+	f.Add([]byte("2.5\n0.00,5.0,0.0\n0.01,5.1,1.0\n"), "")
+	f.Add([]byte("-29.35\n0.00,5.0,0.0\n"), "auto")
+	// a header of 40 columns, three of them known
+	f.Add([]byte(forty()+"\n"+strings.Repeat("1,", 39)+"2\n"), "")
+	// NUL bytes in and between lines
+	f.Add([]byte("t,paw,flow\n0,5\x00,0\n\x00\x00\n0.01,6,30\x00\n"), "")
 	f.Fuzz(func(t *testing.T, data []byte, delim string) {
 		if _, err := parseDelimiter(delim); err != nil {
 			delim = ""
@@ -598,4 +605,13 @@ func TestNoiseBeforeFirstLine(t *testing.T) {
 		!strings.Contains(d.HeaderError().Error(), "paw and flow are required") {
 		t.Errorf("bad header: %v %v %v", c.Bad, got, d.HeaderError())
 	}
+}
+
+// forty is a header of 40 columns: t, paw and flow among others.
+func forty() string {
+	names := []string{"t", "paw", "flow"}
+	for i := len(names); i < 40; i++ {
+		names = append(names, "extra"+strconv.Itoa(i))
+	}
+	return strings.Join(names, ",")
 }
