@@ -256,6 +256,8 @@ type loop struct {
 	ahead   *batch
 	aheadOn bool // set before decoding starts
 
+	headerWarn Throttle // unusable headers: logged once a minute at most
+
 	mu    sync.Mutex // guards the snapshot
 	snap  lines.Counts
 	snapB int64
@@ -545,8 +547,10 @@ func (l *loop) wallTicks(done <-chan struct{}) {
 func (l *loop) badLine(le *lines.LineError) {
 	c := l.dec.Counts().Bad[le.Cause]
 	if le.Cause == lines.CauseBadHeader {
-		l.cfg.Log.Warn().Int64("line", le.Line).Err(l.dec.HeaderError()).
-			Msg("a header line breathd cannot use was skipped: the data is read with the configured columns (check --columns)")
+		if ok, held := l.headerWarn.Allow(time.Now()); ok {
+			l.cfg.Log.Warn().Int64("line", le.Line).Err(l.dec.HeaderError()).Int64("held_back", held).Int64("count", c).
+				Msg("a header line breathd cannot use was skipped: data lines are read with the configured columns (check --columns) until a usable header comes")
+		}
 		return
 	}
 	if c <= 3 || c%1000 == 0 {

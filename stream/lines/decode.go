@@ -14,8 +14,10 @@ import (
 // MaxLineBytes is the longest line (without its terminator) that is decoded.
 const MaxLineBytes = 512
 
-// maxColumns bounds the number of columns a header may name.
-const maxColumns = 32
+// maxColumns is the most fields a line of MaxLineBytes can have: a
+// header may name that many, and the columns breathd does not read are
+// ignored whatever their number.
+const maxColumns = MaxLineBytes/2 + 1
 
 // resyncLines is how many consecutive, mutually increasing lines with a
 // time before the last good sample make the decoder accept the new time

@@ -39,3 +39,18 @@ func TestMidLineStartDoesNotLockTheDelimiter(t *testing.T) {
 		t.Errorf("header after a lone number: %d samples", len(got))
 	}
 }
+
+// TestManyColumns: a header of any number of columns that fits a line
+// names the ones breathd reads; the others are ignored (README). (Issue
+// 16, item 2.)
+func TestManyColumns(t *testing.T) {
+	var b strings.Builder
+	b.WriteString(forty() + "\n")
+	for i := range 100 {
+		b.WriteString(strconv.FormatFloat(float64(i)/100, 'f', 2, 64) + ",5.0,1.0" + strings.Repeat(",7", 37) + "\n")
+	}
+	got, c, err := decodeAll(t, b.String(), Format{})
+	if err != nil || len(got) != 100 || c.BadTotal() != 0 {
+		t.Errorf("40 columns: %d samples, bad %v, %v", len(got), c.Bad, err)
+	}
+}

@@ -108,10 +108,11 @@ type Publisher struct {
 	ackFn      atomic.Pointer[func(id string) error]
 	lastActive atomic.Pointer[[]byte]
 
-	src      payload.Source // this run, in the status
-	lock     *os.File       // held while publishing the device from this machine
-	conflict atomic.Bool    // another breathd publishes the device: this one stopped
-	warned   atomic.Bool    // the other one was reported
+	src      payload.Source  // this run, in the status
+	lock     *os.File        // held while publishing the device from this machine
+	conflict atomic.Bool     // another breathd publishes the device: this one stopped
+	warned   atomic.Bool     // the other one was reported
+	diskWarn stream.Throttle // disk errors of the queue: one line a minute at most
 
 	// events handed over by the device loop, persisted in order by
 	// persistEvents so that no disk write happens on the sample path
@@ -346,7 +347,9 @@ func (p *Publisher) persistEvents() {
 		for i := range items {
 			it := &items[i]
 			if err := p.sp.push(p.topics.event, payload.Event(&it.ev)); err != nil {
-				p.cfg.Log.Error().Err(err).Str("event", it.ev.ID).Msg("could not queue the event on disk")
+				if ok, held := p.diskWarn.Allow(time.Now()); ok {
+					p.cfg.Log.Error().Err(err).Str("event", it.ev.ID).Int64("held_back", held).Msg("could not queue the event on disk")
+				}
 			}
 			p.setActive(it.active)
 		}
@@ -366,7 +369,9 @@ func (p *Publisher) setActive(active []alerts.Active) {
 	payload := payload.Active(p.cfg.Device, p.activeSeq.Add(1), active, time.Now())
 	p.lastActive.Store(&payload)
 	if err := p.sp.setActive(payload); err != nil {
-		p.cfg.Log.Error().Err(err).Msg("could not keep the active rules on disk")
+		if ok, held := p.diskWarn.Allow(time.Now()); ok {
+			p.cfg.Log.Error().Err(err).Int64("held_back", held).Msg("could not keep the active rules on disk")
+		}
 	}
 }
 
@@ -388,7 +393,9 @@ func (p *Publisher) sendQueued() {
 					break
 				}
 				if err := p.sp.ack(m.Seq); err != nil {
-					p.cfg.Log.Error().Err(err).Msg("could not record a delivered event on disk")
+					if ok, held := p.diskWarn.Allow(time.Now()); ok {
+						p.cfg.Log.Error().Err(err).Int64("held_back", held).Msg("could not record a delivered event on disk")
+					}
 				}
 				continue
 			}
