@@ -89,18 +89,23 @@ func (c countingReader) Read(p []byte) (int, error) {
 // Pacer returns the file's pacer.
 func (f *File) Pacer() *Pacer { return &f.pacer }
 
-// Stdin is standard input as a source; closing it unblocks a pending
+// Stdin is standard input as a source (gzip read transparently; a cut
+// gzip header is an error); closing it unblocks a pending
 // Read. (A read on os.Stdin as Go opens it blocks in the kernel and a
 // Close does not end it, so SIGTERM could not stop breathd reading a quiet
 // pipe: the descriptor is made non-blocking and reopened so that the
 // runtime's poller owns it.)
-func Stdin() io.ReadCloser {
+func Stdin() (io.ReadCloser, error) {
 	in := os.Stdin
 	if err := syscall.SetNonblock(0, true); err == nil {
 		in = os.NewFile(0, "/dev/stdin")
 	}
-	r, _ := maybeGzip(in)
-	return readCloser{r, stdinCloser{in}}
+	r, err := maybeGzip(in)
+	if err != nil {
+		stdinCloser{in}.Close()
+		return nil, fmt.Errorf("standard input: %w", err)
+	}
+	return readCloser{r, stdinCloser{in}}, nil
 }
 
 // stdinCloser closes standard input and gives the descriptor back its

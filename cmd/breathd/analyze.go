@@ -35,7 +35,9 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	var src io.ReadCloser
 	var file *device.File
 	if o.path == "-" {
-		src = device.Stdin()
+		if src, err = device.Stdin(); err != nil {
+			return err
+		}
 	} else {
 		if file, err = device.OpenFile(o.path, 0); err != nil {
 			return err

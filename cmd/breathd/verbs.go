@@ -76,7 +76,10 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	log := newLogger(stderr, lvl)
 	var src io.ReadCloser
 	if path == "-" {
-		src = device.Stdin()
+		var err error
+		if src, err = device.Stdin(); err != nil {
+			return err
+		}
 	} else {
 		file, err := device.OpenFile(path, sp)
 		if err != nil {
@@ -193,7 +196,10 @@ func openSource(d *config.Device, log zerolog.Logger) (io.ReadCloser, error) {
 		}
 		src = device.NewSim(d.Sim.Loaded(), device.SimFormat{Delimiter: ',', Header: true}, speed, nil)
 	default:
-		src = device.Stdin()
+		var err error
+		if src, err = device.Stdin(); err != nil {
+			return nil, err
+		}
 	}
 	if d.Record == nil {
 		return src, nil
