@@ -518,18 +518,26 @@ func (l *loop) wallTicks(done <-chan struct{}) {
 			return
 		case now := <-t.C:
 			st := l.status()
+			lost := st.HasHealth && !st.Health.Connected
 			if st.Counts.Samples != lastN {
 				lastN, changed = st.Counts.Samples, now
-				continue // samples flow: the stream-time ticks see to it
+				if !lost {
+					continue // samples flow: the stream-time ticks see to it
+				}
 			}
 			idle := now.Sub(changed).Seconds()
-			if idle < 2*tickEvery {
+			if idle < 2*tickEvery && !lost {
 				continue
 			}
+			// a lost port is told at every tick, so that port_lost is
+			// raised after its two evaluations (2 s), not after the idle
+			// time it takes to notice that no samples come
 			tech := alerts.Unknown()
-			tech.SinceSample = idle
+			if idle >= 2*tickEvery {
+				tech.SinceSample = idle
+			}
 			tech.PortLost = 0
-			if st.HasHealth && !st.Health.Connected {
+			if lost {
 				tech.PortLost = 1
 			}
 			l.emu.Lock()
@@ -613,7 +621,7 @@ func (st Status) String() string {
 		fmt.Fprintf(&b, "  rate %.1f Hz", r)
 	}
 	if c.Samples > 0 {
-		fmt.Fprintf(&b, "  span %.1f s", c.LastT-c.FirstT)
+		fmt.Fprintf(&b, "  span %.1f s", c.Span())
 	}
 	fmt.Fprintf(&b, "  breaths %d", st.Breaths)
 	if d := st.Drops; d.Gap+d.Open+d.TooLong > 0 {

@@ -317,7 +317,7 @@ func (s *summary) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
 func (s *summary) print(w io.Writer, st stream.Status, took time.Duration) {
 	c := st.Counts
 	fmt.Fprintf(w, "%s: %d breaths in %.1f s of stream (%d samples at %.1f Hz, %.2f s to analyze)\n",
-		st.Device, s.n, c.LastT-c.FirstT, c.Samples, c.RateHz(), took.Seconds())
+		st.Device, s.n, c.Span(), c.Samples, c.RateHz(), took.Seconds())
 	fmt.Fprintf(w, "  bad lines %d", c.BadTotal())
 	if c.BadTotal() > 0 {
 		fmt.Fprintf(w, " (%s)", c.BadCauses())

@@ -116,6 +116,21 @@ type Counts struct {
 	Resyncs  int64            // times the decoder accepted a time line reset
 	FirstT   float64          // time of the first good sample, s
 	LastT    float64          // time of the latest good sample, s
+	// The current continuous segment (a gap or a clock reset starts a new
+	// one): the time of its first sample, the samples before it, and the
+	// summed spans of the segments before it.
+	SegFirstT   float64
+	SegFrom     int64
+	EarlierSpan float64
+}
+
+// Span is the stream time covered by good samples: the sum of the
+// continuous segments' spans, without the gaps and resets between them.
+func (c *Counts) Span() float64 {
+	if c.Samples == 0 {
+		return 0
+	}
+	return c.EarlierSpan + c.LastT - c.SegFirstT
 }
 
 // BadTotal is the number of bad lines of every cause.
@@ -140,12 +155,14 @@ func (c *Counts) BadCauses() string {
 	return strings.Join(parts, ", ")
 }
 
-// RateHz is the sample rate seen so far, or 0 before two samples.
+// RateHz is the sample rate of the current continuous segment, or 0
+// before it has two samples.
 func (c *Counts) RateHz() float64 {
-	if c.Samples < 2 || c.LastT <= c.FirstT {
+	n := c.Samples - c.SegFrom
+	if n < 2 || c.LastT <= c.SegFirstT {
 		return 0
 	}
-	return float64(c.Samples-1) / (c.LastT - c.FirstT)
+	return float64(n-1) / (c.LastT - c.SegFirstT)
 }
 
 // Decoder reads samples from a stream of sample lines. It is not safe for
@@ -675,6 +692,7 @@ func (d *Decoder) finish(vals *[5]float64, out *Sample) error {
 func (d *Decoder) checkTime(s *Sample) error {
 	if !d.haveLast {
 		d.haveLast, d.lastT, d.counts.FirstT, d.counts.LastT = true, s.T, s.T, s.T
+		d.counts.SegFirstT = s.T
 		return nil
 	}
 	if s.T <= d.lastT {
@@ -694,6 +712,9 @@ func (d *Decoder) checkTime(s *Sample) error {
 	}
 	if s.Gap {
 		d.counts.Gaps++
+		// a new continuous segment starts with this sample
+		d.counts.EarlierSpan += d.counts.LastT - d.counts.SegFirstT
+		d.counts.SegFirstT, d.counts.SegFrom = s.T, d.counts.Samples
 	}
 	d.backRun = 0
 	d.lastT, d.counts.LastT = s.T, s.T
