@@ -8,6 +8,7 @@ import (
 	"strings"
 	"time"
 
+	"breathd/cmd/breathd/internal/config"
 	"breathd/stream/lines"
 )
 
@@ -69,7 +70,7 @@ func parseSpeed(s string) (float64, error) {
 		return 0, nil
 	}
 	v, err := strconv.ParseFloat(strings.TrimSuffix(strings.ToLower(s), "x"), 64)
-	if err != nil || v < 0 || v > 1e6 {
+	if err != nil || !(v >= 0 && v <= config.MaxSpeed) {
 		return 0, usagef("--speed %q: want 1 (real time), a factor such as 10, or max", s)
 	}
 	return v, nil

@@ -105,8 +105,8 @@ func startMQTT(c config.MQTT, e config.Embedded, stateDir string, log zerolog.Lo
 	if err != nil {
 		return nil, err
 	}
-	if c.BreathQoS < 0 || c.BreathQoS > 1 {
-		return nil, fmt.Errorf("breath_qos %d: want 0 or 1", c.BreathQoS)
+	if err := c.Validate(); err != nil { // flags may have changed it since the file was read
+		return nil, err
 	}
 	s := &mqttSession{cfg: c, password: pw, url: c.Broker, stateDir: stateDir, log: log}
 	if s.url == "" {

@@ -49,6 +49,9 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	if fs.NArg() != 1 {
 		return usagef("replay takes one recording (a file, or - for stdin); got %d", fs.NArg())
 	}
+	if err := config.CheckEvery(*every); err != nil {
+		return usagef("--report-every %w", err)
+	}
 	mcfg, err := pf.config()
 	if err != nil {
 		return err
@@ -123,6 +126,9 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 	}
 	if fs.NArg() > 0 {
 		return usagef("run takes no arguments besides flags; got %q", fs.Args())
+	}
+	if err := config.CheckEvery(*every); err != nil {
+		return usagef("--report-every %w", err)
 	}
 	cfg, err := config.Load(*path)
 	if err != nil {

@@ -131,7 +131,7 @@ func (f Format) Validate() error {
 	if len(f.Columns) > 0 && !seen[ColT] && f.RateHz <= 0 {
 		return errors.New("columns have no t: set rate_hz (--rate-hz)")
 	}
-	if f.RateHz < 0 || f.RateHz > 10000 {
+	if !(f.RateHz >= 0 && f.RateHz <= 10000) {
 		return fmt.Errorf("rate_hz %g out of range (0 < rate ≤ 10000)", f.RateHz)
 	}
 	if f.FlowSign != 0 && f.FlowSign != 1 && f.FlowSign != -1 {

@@ -60,10 +60,10 @@ func ValidateTopicParts(root, device string) error {
 	return CheckDevice(device)
 }
 
-// CheckDevice checks a device id: 1–64 of A–Z a–z 0–9 _ . -, so that it is
-// one topic level and a file name.
+// CheckDevice checks a device id: 1–64 of A–Z a–z 0–9 _ . -, and not "."
+// or "..", so that it is one topic level and a file name of its own.
 func CheckDevice(id string) error {
-	if !validDevice.MatchString(id) {
+	if !validDevice.MatchString(id) || id == "." || id == ".." {
 		return fmt.Errorf("device id %q: use 1–64 of A–Z a–z 0–9 _ . -", id)
 	}
 	return nil

@@ -148,8 +148,11 @@ func (c *Config) validate() error {
 	if _, err := ParseLevel(c.LogLevel); err != nil {
 		return field(err, "log_level")
 	}
-	if c.ReportEvery < 0 {
-		return field(errors.New("must not be negative"), "report_every")
+	if err := CheckEvery(c.ReportEvery); err != nil {
+		return field(err, "report_every")
+	}
+	if err := c.MQTT.Validate(); err != nil {
+		return err
 	}
 	if len(c.Devices) == 0 {
 		return field(errors.New("no devices: list at least one"), "devices")
@@ -184,7 +187,7 @@ func (d *Device) validate(i int) error {
 		if d.File.Path == "" {
 			return field(errors.New("path is empty"), "devices", i, "file", "path")
 		}
-		if d.File.Speed < 0 {
+		if !(d.File.Speed >= 0 && d.File.Speed <= MaxSpeed) {
 			return field(errors.New("speed must be 0 (as fast as possible) or more"), "devices", i, "file", "speed")
 		}
 	}
@@ -193,7 +196,7 @@ func (d *Device) validate(i int) error {
 	}
 	if d.Sim != nil {
 		sources++
-		if d.Sim.Speed < 0 {
+		if !(d.Sim.Speed >= 0 && d.Sim.Speed <= MaxSpeed) {
 			return field(errors.New("speed must be 1 (real time) or more"), "devices", i, "simulate", "speed")
 		}
 		sc, err := LoadScenario(d.Sim.Scenario)
@@ -230,8 +233,11 @@ func (d *Device) validate(i int) error {
 		if d.Record.Dir == "" {
 			return field(errors.New("dir is empty"), "devices", i, "record", "dir")
 		}
-		if d.Record.MaxMiB < 0 || d.Record.ClockEvery < 0 {
-			return field(errors.New("max_mib and clock_every must not be negative"), "devices", i, "record")
+		if d.Record.MaxMiB < 0 || d.Record.MaxMiB > MaxRecordMiB {
+			return field(fmt.Errorf("%d: want 0 (no rotation) to %d", d.Record.MaxMiB, MaxRecordMiB), "devices", i, "record", "max_mib")
+		}
+		if err := CheckEvery(d.Record.ClockEvery); err != nil {
+			return field(err, "devices", i, "record", "clock_every")
 		}
 	}
 	return nil
@@ -262,6 +268,42 @@ type Embedded struct {
 	KeyFile      string `yaml:"key_file"`      // its key (PEM)
 	NoAnonymous  bool   `yaml:"no_anonymous"`  // refuse clients without a user name (by default they may read)
 	MaxClients   int64  `yaml:"max_clients"`   // default 64
+}
+
+// Validate checks the publishing settings, from the file or from flags, as
+// the publisher will: the topic root, breath_qos and status_every. Errors
+// carry the key path under mqtt.
+func (c *MQTT) Validate() error {
+	if c.Root != "" {
+		if err := publish.ValidateTopicParts(c.Root, "x"); err != nil {
+			return field(err, "mqtt")
+		}
+	}
+	if c.BreathQoS < 0 || c.BreathQoS > 1 {
+		return field(fmt.Errorf("%d: want 0 or 1", c.BreathQoS), "mqtt", "breath_qos")
+	}
+	if err := CheckEvery(c.StatusEvery); err != nil {
+		return field(err, "mqtt", "status_every")
+	}
+	return nil
+}
+
+// MinEvery is the shortest period of a report, a status or a clock
+// line: anything shorter only burns the processor.
+const MinEvery = 100 * time.Millisecond
+
+// MaxSpeed is the fastest replay factor (0 is as fast as possible).
+const MaxSpeed = 1e6
+
+// MaxRecordMiB is the largest recording file before rotation, MiB (1 TiB).
+const MaxRecordMiB = 1 << 20
+
+// CheckEvery accepts 0 (the default) or a period of at least MinEvery.
+func CheckEvery(d time.Duration) error {
+	if d != 0 && d < MinEvery {
+		return fmt.Errorf("%v: want 0 (the default) or at least %v", d, MinEvery)
+	}
+	return nil
 }
 
 // Dial is how a client reaches the broker at url with these settings.

@@ -1,0 +1,32 @@
+package config
+
+import (
+	"strings"
+	"testing"
+)
+
+// TestValuesOutOfReason: every value run would refuse, or that would hurt
+// (a NaN rate, a 1 ns report that burns a core, a size that overflows, a
+// device id that leaves its directory), is refused by the loader that
+// check and run share, at its line. (Issue 16, item 5.)
+func TestValuesOutOfReason(t *testing.T) {
+	dev := "devices:\n  - id: bed1\n    stdin: true\n"
+	for _, c := range []struct{ yaml, want string }{
+		{dev + "    format: {rate_hz: .nan}\n", "c.yaml:4: devices[0].format: rate_hz NaN"},
+		{"devices:\n  - id: bed1\n    file: {path: x, speed: .inf}\n", "c.yaml:3: devices[0].file.speed"},
+		{"devices:\n  - id: bed1\n    file: {path: x, speed: .nan}\n", "c.yaml:3: devices[0].file.speed"},
+		{"report_every: 1ns\n" + dev, "c.yaml:1: report_every: 1ns"},
+		{"mqtt: {status_every: 1ns}\n" + dev, "c.yaml:1: mqtt.status_every: 1ns"},
+		{"mqtt: {root: a//b}\n" + dev, "c.yaml:1: mqtt: topic root \"a//b\""},
+		{"mqtt: {breath_qos: 2}\n" + dev, "c.yaml:1: mqtt.breath_qos: 2"},
+		{dev + "    record: {dir: /tmp/r, max_mib: 9223372036854775807}\n", "c.yaml:4: devices[0].record.max_mib"},
+		{dev + "    record: {dir: /tmp/r, clock_every: 1ns}\n", "c.yaml:4: devices[0].record.clock_every"},
+		{"devices:\n  - id: '..'\n    stdin: true\n", "c.yaml:2: devices[0].id: device id \"..\""},
+		{"devices:\n  - id: .\n    stdin: true\n", "c.yaml:2: devices[0].id: device id \".\""},
+	} {
+		_, err := Parse("c.yaml", []byte(c.yaml))
+		if err == nil || !strings.HasPrefix(err.Error(), c.want) {
+			t.Errorf("%q: %v, want %q…", c.yaml, err, c.want)
+		}
+	}
+}
