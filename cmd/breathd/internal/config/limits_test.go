@@ -1,6 +1,7 @@
 package config
 
 import (
+	"runtime"
 	"strings"
 	"testing"
 )
@@ -27,6 +28,27 @@ func TestValuesOutOfReason(t *testing.T) {
 		_, err := Parse("c.yaml", []byte(c.yaml))
 		if err == nil || !strings.HasPrefix(err.Error(), c.want) {
 			t.Errorf("%q: %v, want %q…", c.yaml, err, c.want)
+		}
+	}
+}
+
+// TestDeepNestingBounded: a small file nested thousands deep costs little
+// to reject and says where in a short line. (Issue 16, item 6: 9000
+// levels took some 700 MB.)
+func TestDeepNestingBounded(t *testing.T) {
+	for _, text := range []string{
+		"devices: " + strings.Repeat("[", 9000) + strings.Repeat("]", 9000) + "\n",
+		"devices:\n" + strings.Repeat("- ", 9000) + "x\n",
+	} {
+		var m0, m1 runtime.MemStats
+		runtime.ReadMemStats(&m0)
+		_, err := Parse("n.yaml", []byte(text))
+		runtime.ReadMemStats(&m1)
+		if err == nil || len(err.Error()) > 300 {
+			t.Errorf("error %.300v (%d bytes)", err, len(err.Error()))
+		}
+		if mb := (m1.TotalAlloc - m0.TotalAlloc) >> 20; mb > 64 {
+			t.Errorf("%d MB allocated to reject %d bytes", mb, len(text))
 		}
 	}
 }

@@ -30,8 +30,15 @@ func (e *FieldError) Error() string { return pathString(e.Path) + ": " + e.Err.E
 // Unwrap returns the problem.
 func (e *FieldError) Unwrap() error { return e.Err }
 
+// maxPathShown is the most levels of a key path an error shows; deeper
+// ones are elided.
+const maxPathShown = 12
+
 func pathString(path []any) string {
 	var b strings.Builder
+	if len(path) > maxPathShown {
+		path = append(append([]any(nil), path[:maxPathShown/2]...), append([]any{"…"}, path[len(path)-maxPathShown/2:]...)...)
+	}
 	for _, p := range path {
 		switch v := p.(type) {
 		case int:
@@ -139,36 +146,41 @@ func (c *yamlFile) under(line int) string {
 	return ""
 }
 
-// keyAt returns the key path of the key or value at a line.
+// keyAt returns the key path of the key or value at a line. The walk
+// keeps one path and copies it only where the line matches, so that a
+// file nested thousands deep costs time and memory in proportion to its
+// size.
 func (c *yamlFile) keyAt(line int) string {
-	var found []any
-	var walk func(n *yaml.Node, path []any)
-	walk = func(n *yaml.Node, path []any) {
+	var found, path []any
+	var walk func(n *yaml.Node)
+	walk = func(n *yaml.Node) {
 		switch n.Kind {
 		case yaml.DocumentNode:
 			for _, ch := range n.Content {
-				walk(ch, path)
+				walk(ch)
 			}
 		case yaml.MappingNode:
 			for i := 0; i+1 < len(n.Content); i += 2 {
 				k, v := n.Content[i], n.Content[i+1]
-				p := append(append([]any(nil), path...), k.Value)
+				path = append(path, k.Value)
 				if k.Line == line || (v.Line == line && v.Kind == yaml.ScalarNode) {
-					found = p
+					found = append(found[:0], path...)
 				}
-				walk(v, p)
+				walk(v)
+				path = path[:len(path)-1]
 			}
 		case yaml.SequenceNode:
 			for i, ch := range n.Content {
-				p := append(append([]any(nil), path...), i)
+				path = append(path, i)
 				if ch.Line == line && ch.Kind == yaml.ScalarNode {
-					found = p
+					found = append(found[:0], path...)
 				}
-				walk(ch, p)
+				walk(ch)
+				path = path[:len(path)-1]
 			}
 		}
 	}
-	walk(c.root, nil)
+	walk(c.root)
 	if found == nil {
 		return "value"
 	}
