@@ -179,8 +179,9 @@ func TestNeverTwoRaisedInARow(t *testing.T) {
 }
 
 func TestDefaultsValid(t *testing.T) {
-	rules, err := Merge(Defaults(), []Rule{{ID: "plateau_high", Threshold: 28}, {ID: "power_high", Off: true},
-		{ID: "my_rule", Field: "median.cstat", Compare: Below, Threshold: 25, RaiseAfter: 2, ClearAfter: 2, Level: LevelNotice}})
+	rules, err := Merge(Defaults(), []Override{{ID: "plateau_high", Threshold: new(28.0)}, {ID: "power_high", Off: new(true)},
+		{ID: "my_rule", Field: new("median.cstat"), Compare: new(Below), Threshold: new(25.0), RaiseAfter: new(2), ClearAfter: new(2),
+			Level: new(LevelNotice)}})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -199,8 +200,8 @@ func TestDefaultsValid(t *testing.T) {
 	if len(e.rules) != len(Defaults()) { // one off, one added
 		t.Errorf("%d rules compiled", len(e.rules))
 	}
-	for _, bad := range []Rule{{ID: "Bad-Id"}, {ID: "x", Field: "nope"}, {ID: "x", Field: "dp", Compare: "near"}} {
-		if _, err := Merge(nil, []Rule{bad}); err == nil {
+	for _, bad := range []Override{{ID: "Bad-Id"}, {ID: "x", Field: new("nope")}, {ID: "x", Field: new("dp"), Compare: new(Comparison("near"))}} {
+		if _, err := Merge(nil, []Override{bad}); err == nil {
 			t.Errorf("%+v accepted", bad)
 		}
 	}

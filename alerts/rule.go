@@ -133,10 +133,53 @@ func fieldKind(name string) (int, error) {
 	return 0, fmt.Errorf("unknown field %q", name)
 }
 
-// Merge applies overrides to the defaults by id: a known id changes the
-// fields the override sets (non-zero), a new id adds a rule. Off switches
-// a rule off.
-func Merge(defaults []Rule, overrides []Rule) ([]Rule, error) {
+// Override changes a rule by id, or adds one with a new id. Every field
+// that is set (present in the configuration, so 0 and false count)
+// replaces the rule's; the others keep it.
+type Override struct {
+	ID            string      `yaml:"id"`
+	Field         *string     `yaml:"field"`
+	Compare       *Comparison `yaml:"compare"`
+	Threshold     *float64    `yaml:"threshold"`
+	Low           *float64    `yaml:"low"`
+	High          *float64    `yaml:"high"`
+	Hysteresis    *float64    `yaml:"hysteresis"`
+	RaiseAfter    *int        `yaml:"raise_after"`
+	RaiseAfterSec *float64    `yaml:"raise_after_s"`
+	ClearAfter    *int        `yaml:"clear_after"`
+	Level         *Level      `yaml:"level"`
+	Latching      *bool       `yaml:"latching"`
+	Off           *bool       `yaml:"off"`
+	Source        *string     `yaml:"source"`
+}
+
+// apply sets the fields o sets.
+func (o *Override) apply(r *Rule) {
+	set(&r.Field, o.Field)
+	set(&r.Compare, o.Compare)
+	set(&r.Threshold, o.Threshold)
+	set(&r.Low, o.Low)
+	set(&r.High, o.High)
+	set(&r.Hysteresis, o.Hysteresis)
+	set(&r.RaiseAfter, o.RaiseAfter)
+	set(&r.RaiseAfterSec, o.RaiseAfterSec)
+	set(&r.ClearAfter, o.ClearAfter)
+	set(&r.Level, o.Level)
+	set(&r.Latching, o.Latching)
+	set(&r.Off, o.Off)
+	set(&r.Source, o.Source)
+}
+
+func set[T any](dst *T, v *T) {
+	if v != nil {
+		*dst = *v
+	}
+}
+
+// Merge applies overrides to the defaults by id, in order: a known id
+// changes the fields the override sets, a new id adds a rule. Off
+// switches a rule off (and off: false on again).
+func Merge(defaults []Rule, overrides []Override) ([]Rule, error) {
 	out := append([]Rule(nil), defaults...)
 	for _, o := range overrides {
 		i := -1
@@ -146,39 +189,10 @@ func Merge(defaults []Rule, overrides []Rule) ([]Rule, error) {
 			}
 		}
 		if i < 0 {
-			out = append(out, o)
-			continue
+			out = append(out, Rule{ID: o.ID})
+			i = len(out) - 1
 		}
-		r := &out[i]
-		if o.Field != "" {
-			r.Field = o.Field
-		}
-		if o.Compare != "" {
-			r.Compare = o.Compare
-		}
-		if o.Threshold != 0 {
-			r.Threshold = o.Threshold
-		}
-		if o.Low != 0 || o.High != 0 {
-			r.Low, r.High = o.Low, o.High
-		}
-		if o.Hysteresis != 0 {
-			r.Hysteresis = o.Hysteresis
-		}
-		if o.RaiseAfter != 0 {
-			r.RaiseAfter = o.RaiseAfter
-		}
-		if o.RaiseAfterSec != 0 {
-			r.RaiseAfterSec = o.RaiseAfterSec
-		}
-		if o.ClearAfter != 0 {
-			r.ClearAfter = o.ClearAfter
-		}
-		if o.Level != "" {
-			r.Level = o.Level
-		}
-		r.Latching = r.Latching || o.Latching
-		r.Off = o.Off
+		o.apply(&out[i])
 	}
 	seen := map[string]bool{}
 	for i := range out {

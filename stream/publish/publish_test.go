@@ -125,7 +125,7 @@ func TestPublishToEmbeddedBroker(t *testing.T) {
 	}
 	pub.SetAck(ctl.Ack)
 	// a latching driving-pressure rule on a stiff lung, so that there is something to acknowledge
-	rules, _ := alerts.Merge(alerts.Defaults(), []alerts.Rule{{ID: "driving_pressure_high", Latching: true}})
+	rules, _ := alerts.Merge(alerts.Defaults(), []alerts.Override{{ID: "driving_pressure_high", Latching: new(true)}})
 	sc := lungsim.Scenario{Seed: 3, RateHz: 100, Duration: 3 * time.Minute,
 		Settings: lungsim.Settings{Mode: lungsim.ModeVC, R: 10, C: 25, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3}}
 	sc.Defaults()
@@ -215,7 +215,7 @@ func TestAckAcknowledgesLatchingRule(t *testing.T) {
 		t.Fatal(err)
 	}
 	pub.SetAck(ctl.Ack)
-	rules, _ := alerts.Merge(alerts.Defaults(), []alerts.Rule{{ID: "driving_pressure_high", Latching: true}})
+	rules, _ := alerts.Merge(alerts.Defaults(), []alerts.Override{{ID: "driving_pressure_high", Latching: new(true)}})
 	sc := lungsim.Scenario{Seed: 3, RateHz: 100, Duration: time.Hour,
 		Settings: lungsim.Settings{Mode: lungsim.ModeVC, R: 10, C: 25, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3}}
 	sc.Defaults()

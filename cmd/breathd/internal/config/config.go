@@ -43,7 +43,7 @@ type Device struct {
 	Stdin   bool                 `yaml:"stdin"`
 	Sim     *SimSource           `yaml:"simulate"`
 	Patient mechanics.Patient    `yaml:"patient"`
-	Rules   []alerts.Rule        `yaml:"rules"` // overrides of the default rules by id, or new rules
+	Rules   []alerts.Override    `yaml:"rules"` // overrides of the default rules by id, or new rules
 	Measure Measurement          `yaml:"measurement"`
 
 	rules     []alerts.Rule    // the defaults merged with Rules

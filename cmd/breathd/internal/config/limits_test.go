@@ -4,6 +4,8 @@ import (
 	"runtime"
 	"strings"
 	"testing"
+
+	"breathd/alerts"
 )
 
 // TestValuesOutOfReason: every value run would refuse, or that would hurt
@@ -49,6 +51,56 @@ func TestDeepNestingBounded(t *testing.T) {
 		}
 		if mb := (m1.TotalAlloc - m0.TotalAlloc) >> 20; mb > 64 {
 			t.Errorf("%d MB allocated to reject %d bytes", mb, len(text))
+		}
+	}
+}
+
+// TestOverridesCarryPresence: a rule override may set 0 and false: a
+// hysteresis of 0, a threshold of 0, latching switched off again, a rule
+// switched back on. What the override leaves out keeps the default.
+// (Issue 16, item 7.)
+func TestOverridesCarryPresence(t *testing.T) {
+	c, err := Parse("r.yaml", []byte(`devices:
+  - id: a
+    stdin: true
+    rules:
+      - {id: plateau_high, hysteresis: 0, latching: true}
+      - {id: driving_pressure_high, threshold: 0}
+  - id: b
+    stdin: true
+    rules:
+      - {id: plateau_high, latching: true}
+      - {id: plateau_high, latching: false}
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	find := func(d int, id string) (r alerts.Rule) {
+		for _, r := range c.Devices[d].MergedRules() {
+			if r.ID == id {
+				return r
+			}
+		}
+		t.Fatalf("no rule %s", id)
+		return r
+	}
+	if r := find(0, "plateau_high"); r.Hysteresis != 0 || !r.Latching || r.Threshold != 30 {
+		t.Errorf("plateau_high on a: %+v", r)
+	}
+	if r := find(0, "driving_pressure_high"); r.Threshold != 0 || r.Hysteresis != 1 {
+		t.Errorf("driving_pressure_high on a: %+v", r)
+	}
+	if r := find(1, "plateau_high"); r.Latching {
+		t.Errorf("latching: false ignored: %+v", r)
+	}
+	// switched off, then on again by a later override
+	rules, err := alerts.Merge(alerts.Defaults(), []alerts.Override{{ID: "power_high", Off: new(true)}, {ID: "power_high", Off: new(false), Latching: new(true)}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, r := range rules {
+		if r.ID == "power_high" && (r.Off || !r.Latching) {
+			t.Errorf("power_high %+v", r)
 		}
 	}
 }
