@@ -253,9 +253,16 @@ func (p *Publisher) SetAck(fn func(id string) error) { p.ackFn.Store(&fn) }
 // ackID is a well-formed event id: device/rule/run-seq.
 var ackID = regexp.MustCompile(`^([A-Za-z0-9_.-]{1,64})/[a-z0-9_]{1,48}/[0-9a-z]{1,16}-[0-9]{1,18}$`)
 
+// maxAck bounds an acknowledgement's payload: an event id, perhaps in
+// JSON, is some tens of bytes.
+const maxAck = 1024
+
 // ParseAck reads an acknowledgement message: an event id, as plain text
 // or as {"id": "…"}. It accepts only well-formed ids of this device.
 func ParseAck(device string, payload []byte) (string, error) {
+	if len(payload) > maxAck {
+		return "", fmt.Errorf("ack: %d bytes is too long for an event id (at most %d)", len(payload), maxAck)
+	}
 	text := strings.TrimSpace(string(payload))
 	if strings.HasPrefix(text, "{") {
 		var m struct {

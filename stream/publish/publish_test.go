@@ -11,6 +11,7 @@ import (
 	"net/url"
 	"os"
 	"path/filepath"
+	"runtime"
 	"strings"
 	"sync"
 	"testing"
@@ -508,4 +509,20 @@ func (l *syncLog) String() string {
 	l.mu.Lock()
 	defer l.mu.Unlock()
 	return l.b.String()
+}
+
+// TestHugeAckRefusedBeforeParsing: a 10 MB ack payload is refused by its
+// size, without being copied or parsed. (Issue 16, item 8.)
+func TestHugeAckRefusedBeforeParsing(t *testing.T) {
+	huge := []byte(`{"id":"` + strings.Repeat("a", 10<<20) + `"}`)
+	var m0, m1 runtime.MemStats
+	runtime.ReadMemStats(&m0)
+	_, err := ParseAck("bed1", huge)
+	runtime.ReadMemStats(&m1)
+	if err == nil || !strings.Contains(err.Error(), "too long") {
+		t.Errorf("10 MB ack: %v", err)
+	}
+	if grew := m1.TotalAlloc - m0.TotalAlloc; grew > 64<<10 {
+		t.Errorf("%d KB allocated to refuse it", grew>>10)
+	}
 }
