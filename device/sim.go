@@ -45,6 +45,19 @@ type Sim struct {
 	timer *time.Timer
 }
 
+// Preamble is the number of lines printed before the first sample: the
+// directive and the header, when set.
+func (f SimFormat) Preamble() int64 {
+	var n int64
+	if f.Directive != "" {
+		n++
+	}
+	if f.Header {
+		n++
+	}
+	return n
+}
+
 // linesPerChunk is how many lines a fast Read formats at once.
 const linesPerChunk = 512
 

@@ -2,6 +2,7 @@ package main
 
 import (
 	"bufio"
+	"bytes"
 	"compress/gzip"
 	"context"
 	"errors"
@@ -12,6 +13,7 @@ import (
 	"os"
 	"strconv"
 	"strings"
+	"sync"
 	"time"
 
 	"breathd/cmd/breathd/internal/config"
@@ -158,15 +160,21 @@ func cmdSimulate(ctx context.Context, args []string, stdout, stderr io.Writer) e
 			writeTruth(tw, tr)
 		}
 	})
-	stop := context.AfterFunc(ctx, func() { src.Close() })
-	defer stop()
 	w, dest, closeOut, err := simOutput(*out, *usePty, *link, stdout, stderr)
 	if err != nil {
 		return err
 	}
+	// Ctrl-C ends the copy whether it waits to read (pacing) or to write (a
+	// pty nobody reads): close both ends
+	var closeOnce sync.Once
+	var closeErr error
+	closeAll := func() error { closeOnce.Do(func() { closeErr = closeOut() }); return closeErr }
+	stop := context.AfterFunc(ctx, func() { src.Close(); closeAll() })
+	defer stop()
 	start := time.Now()
-	n, copyErr := io.Copy(w, src)
-	if err := closeOut(); copyErr == nil {
+	lw := &lineCounter{w: w}
+	n, copyErr := io.Copy(lw, src)
+	if err := closeAll(); copyErr == nil {
 		copyErr = err
 	}
 	if err := closeTruth(); copyErr == nil {
@@ -175,9 +183,27 @@ func cmdSimulate(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	if copyErr != nil && ctx.Err() == nil {
 		return fmt.Errorf("write %s: %w", dest, copyErr)
 	}
+	done := time.Duration(float64(max(0, lw.lines-simFmt.Preamble())) / sc.RateHz * float64(time.Second))
+	if ctx.Err() != nil && done < sc.Duration {
+		fmt.Fprintf(stderr, "stopped after %v of the %v scenario at %g Hz: %d breaths, %.1f MB to %s in %.1f s\n",
+			done.Round(10*time.Millisecond), sc.Duration, sc.RateHz, breaths, float64(n)/1e6, dest, time.Since(start).Seconds())
+		return nil
+	}
 	fmt.Fprintf(stderr, "simulated %v at %g Hz: %d breaths, %.1f MB to %s in %.1f s\n",
 		sc.Duration, sc.RateHz, breaths, float64(n)/1e6, dest, time.Since(start).Seconds())
 	return nil
+}
+
+// lineCounter counts the lines written through it.
+type lineCounter struct {
+	w     io.Writer
+	lines int64
+}
+
+func (c *lineCounter) Write(p []byte) (int, error) {
+	n, err := c.w.Write(p)
+	c.lines += int64(bytes.Count(p[:n], []byte{'\n'}))
+	return n, err
 }
 
 // simFormat builds the printed format, and the directive that tells
@@ -214,6 +240,10 @@ func simOutput(out string, usePty bool, link string, stdout, stderr io.Writer) (
 	if usePty {
 		master, slave, err := pty.Open()
 		if err != nil {
+			return nil, "", nil, fmt.Errorf("open a pseudo-terminal: %w", err)
+		}
+		if master, err = pollable(master); err != nil {
+			slave.Close()
 			return nil, "", nil, fmt.Errorf("open a pseudo-terminal: %w", err)
 		}
 		makeRaw(slave)
@@ -253,6 +283,24 @@ func simOutput(out string, usePty bool, link string, stdout, stderr io.Writer) (
 		}, nil
 	}
 	return bw, out, func() error { return errors.Join(bw.Flush(), f.Close()) }, nil
+}
+
+// pollable gives f's descriptor back as a non-blocking file that Go's
+// poller owns, so that closing it ends a Write blocked because nobody
+// reads the pty (the pty library's file is in blocking mode, and closing
+// that waits for the Write).
+func pollable(f *os.File) (*os.File, error) {
+	fd, err := unix.Dup(int(f.Fd()))
+	f.Close()
+	if err != nil {
+		return nil, err
+	}
+	if err := unix.SetNonblock(fd, true); err != nil {
+		unix.Close(fd)
+		return nil, err
+	}
+	unix.CloseOnExec(fd)
+	return os.NewFile(uintptr(fd), "/dev/ptmx"), nil
 }
 
 // makeRaw turns off echo and line editing on a pty so it passes bytes
