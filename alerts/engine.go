@@ -309,7 +309,7 @@ func (e *Engine) Ack(id string, t float64, wall time.Time) ([]Event, error) {
 			continue
 		}
 		if st.acked {
-			return e.out, nil // already acknowledged: nothing new
+			return e.out, fmt.Errorf("%w: %q", ErrAcknowledged, id) // nothing new
 		}
 		st.acked = true
 		e.emit(st, Acknowledged, math.NaN(), t, wall)

@@ -210,5 +210,9 @@ func Merge(defaults []Rule, overrides []Override) ([]Rule, error) {
 	return out, nil
 }
 
+// ErrAcknowledged is returned by Ack for an event acknowledged before:
+// nothing changes.
+var ErrAcknowledged = errors.New("already acknowledged")
+
 // ErrUnknownEvent is returned by Ack for an id no raised rule carries.
 var ErrUnknownEvent = errors.New("no raised rule has that event id")

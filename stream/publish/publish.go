@@ -299,6 +299,10 @@ func (p *Publisher) onAck(_ mqtt.Client, m mqtt.Message) {
 			err = errors.New("acknowledgements are not taken yet")
 		}
 	}
+	if errors.Is(err, alerts.ErrAcknowledged) {
+		p.cfg.Log.Debug().Str("event", id).Msg("acknowledged before: nothing to do")
+		return
+	}
 	if err != nil {
 		p.rejected.Add(1)
 		p.cfg.Log.Info().Err(err).Msg("acknowledgement refused")

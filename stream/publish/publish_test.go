@@ -19,6 +19,7 @@ import (
 
 	"breathd/alerts"
 	"breathd/device"
+	"breathd/mechanics"
 	"breathd/mechanics/lungsim"
 	"breathd/stream"
 	"breathd/stream/broker"
@@ -524,5 +525,44 @@ func TestHugeAckRefusedBeforeParsing(t *testing.T) {
 	}
 	if grew := m1.TotalAlloc - m0.TotalAlloc; grew > 64<<10 {
 		t.Errorf("%d KB allocated to refuse it", grew>>10)
+	}
+}
+
+// fakeMsg is an MQTT message for calling a handler directly.
+type fakeMsg struct {
+	topic   string
+	payload []byte
+}
+
+func (m fakeMsg) Duplicate() bool   { return false }
+func (m fakeMsg) Qos() byte         { return 1 }
+func (m fakeMsg) Retained() bool    { return false }
+func (m fakeMsg) Topic() string     { return m.topic }
+func (m fakeMsg) MessageID() uint16 { return 1 }
+func (m fakeMsg) Payload() []byte   { return m.payload }
+func (m fakeMsg) Ack()              {}
+
+// TestRepeatedAckCountedOnce: the same acknowledgement twice (a resend, a
+// second click) acknowledges once and counts once. (Issue 16, item 12.)
+func TestRepeatedAckCountedOnce(t *testing.T) {
+	rules, _ := alerts.Merge(nil, []alerts.Override{{ID: "dp_high", Field: new("dp"), Compare: new(alerts.Above), Threshold: new(15.0),
+		RaiseAfter: new(1), ClearAfter: new(1), Level: new(alerts.LevelWarning), Latching: new(true)}})
+	e, err := alerts.NewEngine("bed1", "r1", rules)
+	if err != nil {
+		t.Fatal(err)
+	}
+	evs := e.Breath(&mechanics.Breath{TEnd: 4, DP: 20}, nil, time.Now())
+	if len(evs) != 1 {
+		t.Fatalf("events %v", evs)
+	}
+	id := evs[0].ID
+	sp, _ := openSpool("")
+	p := &Publisher{cfg: Config{Device: "bed1", Log: zerolog.Nop()}, sp: sp}
+	p.SetAck(func(id string) error { _, err := e.Ack(id, 5, time.Now()); return err })
+	for range 2 {
+		p.onAck(nil, fakeMsg{"breathd/bed1/ack", []byte(id)})
+	}
+	if c := p.Counters(); c.Acks != 1 || c.AcksRefused != 0 {
+		t.Errorf("acks %d, refused %d after the same ack twice", c.Acks, c.AcksRefused)
 	}
 }
