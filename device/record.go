@@ -7,6 +7,7 @@ import (
 	"io"
 	"os"
 	"path/filepath"
+	"sync"
 	"sync/atomic"
 	"time"
 
@@ -42,6 +43,10 @@ type Recorder struct {
 	cfg RecordConfig
 	log zerolog.Logger
 
+	// mu guards the file: the reading goroutine writes it, Close (from any
+	// goroutine, e.g. on SIGTERM) ends it
+	mu        sync.Mutex
+	closed    bool
 	f         *os.File
 	size      int64
 	day       int // UTC year*400+yday of the open file
@@ -86,14 +91,23 @@ func NewRecorder(src io.ReadCloser, cfg RecordConfig, log zerolog.Logger) (*Reco
 func (r *Recorder) Read(p []byte) (int, error) {
 	n, err := r.src.Read(p)
 	if n > 0 {
-		r.record(p[:n])
+		r.mu.Lock()
+		if !r.closed {
+			r.record(p[:n])
+		}
+		r.mu.Unlock()
 	}
 	return n, err
 }
 
-// Close closes the source and the open file.
+// Close closes the source, which ends a Read in progress, and the open
+// file; what is read after it is not recorded. It may be called from any
+// goroutine, more than once.
 func (r *Recorder) Close() error {
 	err := r.src.Close()
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	r.closed = true
 	if r.f != nil {
 		r.f.Sync()
 		r.f.Close()

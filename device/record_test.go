@@ -7,6 +7,7 @@ import (
 	"io/fs"
 	"os"
 	"path/filepath"
+	"runtime"
 	"sort"
 	"strings"
 	"testing"
@@ -153,5 +154,44 @@ func TestFileReadsGzip(t *testing.T) {
 	b, _ := io.ReadAll(f)
 	if string(b) != "t,paw,flow\n0,5,0\n" {
 		t.Errorf("gzip read %q", b)
+	}
+}
+
+// TestRecorderCloseDuringRead: Close from another goroutine while the
+// reading goroutine is recording (SIGTERM during a run with record:) is
+// not a data race, and the file ends up closed. Run with -race. (Issue
+// 16, item 10.)
+func TestRecorderCloseDuringRead(t *testing.T) {
+	pr, pw := io.Pipe()
+	go func() {
+		line := []byte("0.00,5.0,0.0\n")
+		for {
+			if _, err := pw.Write(line); err != nil {
+				return
+			}
+		}
+	}()
+	rec, err := NewRecorder(pr, RecordConfig{Dir: t.TempDir(), Name: "race"}, zerolog.Nop())
+	if err != nil {
+		t.Fatal(err)
+	}
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		buf := make([]byte, 64)
+		for {
+			if _, err := rec.Read(buf); err != nil {
+				return
+			}
+		}
+	}()
+	for rec.Files() == 0 {
+		runtime.Gosched()
+	}
+	rec.Close()
+	pw.CloseWithError(io.EOF)
+	<-done
+	if rec.WriteErrors() != 0 {
+		t.Errorf("%d write errors", rec.WriteErrors())
 	}
 }
