@@ -11,6 +11,7 @@ package device
 
 import (
 	"context"
+	"io"
 	"time"
 )
 
@@ -27,6 +28,45 @@ type Health struct {
 // again. Health is safe to call from any goroutine.
 type HealthReporter interface {
 	Health() Health
+}
+
+// RecordStats are a recording's counts: files started and writes that
+// failed.
+type RecordStats struct{ Files, WriteErrors int64 }
+
+// Recording is implemented by sources that record what they pass on.
+type Recording interface{ RecordStats() RecordStats }
+
+// wrapper is implemented by sources that wrap another (a Recorder).
+type wrapper interface{ Source() io.ReadCloser }
+
+// HealthOf returns the health of src, or of the source it wraps, and
+// false when neither reports one.
+func HealthOf(src io.Reader) (Health, bool) {
+	for {
+		if h, ok := src.(HealthReporter); ok {
+			return h.Health(), true
+		}
+		w, ok := src.(wrapper)
+		if !ok {
+			return Health{}, false
+		}
+		src = w.Source()
+	}
+}
+
+// PacerOf returns the pacer of src, or of the source it wraps, or nil.
+func PacerOf(src io.Reader) *Pacer {
+	for {
+		if p, ok := src.(Paced); ok {
+			return p.Pacer()
+		}
+		w, ok := src.(wrapper)
+		if !ok {
+			return nil
+		}
+		src = w.Source()
+	}
 }
 
 // Paced is implemented by sources whose samples must be released at the

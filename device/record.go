@@ -128,20 +128,14 @@ func (r *Recorder) WriteErrors() int64 { return r.writeErrs.Load() }
 // Files is the number of recording files started.
 func (r *Recorder) Files() int64 { return r.files.Load() }
 
-// Health passes on the source's health when it has one.
-func (r *Recorder) Health() Health {
-	if h, ok := r.src.(HealthReporter); ok {
-		return h.Health()
-	}
-	return Health{Connected: true}
-}
+// Source is the source the recorder wraps: HealthOf and PacerOf look
+// through it, so that a recorder claims neither a health nor a pace its
+// source does not have.
+func (r *Recorder) Source() io.ReadCloser { return r.src }
 
-// Pacer passes on the source's pacer when it has one.
-func (r *Recorder) Pacer() *Pacer {
-	if p, ok := r.src.(Paced); ok {
-		return p.Pacer()
-	}
-	return nil
+// RecordStats are the recorder's counts, for the status.
+func (r *Recorder) RecordStats() RecordStats {
+	return RecordStats{Files: r.files.Load(), WriteErrors: r.writeErrs.Load()}
 }
 
 func (r *Recorder) record(b []byte) {

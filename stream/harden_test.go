@@ -146,3 +146,24 @@ func TestPortLostWithinTwoSeconds(t *testing.T) {
 	cancel()
 	<-done
 }
+
+// TestRecordingCountersAndNoFalseHealth: a recorder around a source that
+// knows nothing of a connection claims no health, and its files and write
+// errors reach the status. (Issue 16, item 11.)
+func TestRecordingCountersAndNoFalseHealth(t *testing.T) {
+	in := "t,paw,flow\n" + strings.Repeat("0.00,5.0,0.0\n", 1)
+	rec, err := device.NewRecorder(io.NopCloser(strings.NewReader(in)), device.RecordConfig{Dir: t.TempDir(), Name: "r"}, zerolog.Nop())
+	if err != nil {
+		t.Fatal(err)
+	}
+	st, err := Run(context.Background(), rec, Config{Device: "r"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if st.HasHealth {
+		t.Errorf("health claimed for a source without one: %+v", st.Health)
+	}
+	if !st.Recorded || st.Recording.Files != 1 || st.Recording.WriteErrors != 0 {
+		t.Errorf("recording counters %+v (recorded %v)", st.Recording, st.Recorded)
+	}
+}

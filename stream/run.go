@@ -87,6 +87,8 @@ type Status struct {
 	Events    int64              // rule transitions
 	Health    device.Health      // the source's, when it reports one
 	HasHealth bool
+	Recording device.RecordStats // the raw recording's, when the source records
+	Recorded  bool
 	Elapsed   time.Duration // since Run started
 	Final     bool
 }
@@ -178,9 +180,7 @@ func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
 	if es, ok := cfg.Sink.(EventSink); ok {
 		l.events = es
 	}
-	if p, ok := src.(device.Paced); ok {
-		l.pacer = p.Pacer()
-	}
+	l.pacer = device.PacerOf(src)
 	if cfg.Ahead && !cfg.Live && (l.pacer == nil || l.pacer.Speed <= 0) {
 		l.aheadOn, l.pacer, l.ahead = true, nil, &batch{}
 	}
@@ -493,7 +493,7 @@ func (l *loop) tick(s *lines.Sample) {
 		seen := float64(c.Samples-oldN) / (s.T - oldT)
 		tech.RateError = math.Abs(seen-want) / want * 100
 	}
-	if h, ok := l.src.(device.HealthReporter); ok && !h.Health().Connected {
+	if h, ok := device.HealthOf(l.src); ok && !h.Connected {
 		tech.PortLost = 1
 	} else {
 		tech.PortLost = 0
@@ -593,8 +593,9 @@ func (l *loop) status() Status {
 	st := Status{Device: l.cfg.Device, Counts: l.snap, Breaths: l.snapB, Drops: l.snapD, Channels: l.snapC,
 		Events: l.snapE, Elapsed: time.Since(l.start)}
 	l.mu.Unlock()
-	if h, ok := l.src.(device.HealthReporter); ok {
-		st.Health, st.HasHealth = h.Health(), true
+	st.Health, st.HasHealth = device.HealthOf(l.src)
+	if r, ok := l.src.(device.Recording); ok {
+		st.Recording, st.Recorded = r.RecordStats(), true
 	}
 	return st
 }

@@ -201,6 +201,10 @@ func Status(device string, seq int64, state, reason string, src Source, st strea
 	if st.HasHealth {
 		counters["port_connected"], counters["port_outages"] = st.Health.Connected, st.Health.Outages
 	}
+	if st.Recorded {
+		counters["recording_files"], counters["recording_write_errors"] = st.Recording.Files, st.Recording.WriteErrors
+	}
+	counters["queue_last_error"] = pc.QueueError
 	out, _ := json.Marshal(struct {
 		V        int            `json:"v"`
 		Device   string         `json:"device"`
@@ -234,4 +238,5 @@ func Will(device, reason string) []byte {
 // Counters are a publisher's own counts, for the status payload.
 type Counters struct {
 	QueueDepth, Dropped, Sent, Reconnects, Acks, AcksRefused, Unqueued int64
+	QueueError                                                         string // the durable queue's latest disk error, "" when none
 }

@@ -140,9 +140,10 @@ func TestStatusGolden(t *testing.T) {
 		Counts:   lines.Counts{Lines: 4803, Comments: 2, Samples: 4800, Gaps: 1, FirstT: 0, LastT: 47.99},
 		Drops:    mechanics.Drops{Gap: 1},
 		Channels: mechanics.Channels{Delay: 0.02, Aligned: 0.02, PawSD: 0.2, FlowSD: 0.5},
-		Health:   device.Health{Connected: true, Outages: 1}, HasHealth: true}
+		Health:   device.Health{Connected: true, Outages: 1}, HasHealth: true,
+		Recording: device.RecordStats{Files: 2, WriteErrors: 1}, Recorded: true}
 	st.Counts.Bad[lines.CauseNotNumber] = 1
-	pc := Counters{QueueDepth: 0, Sent: 30, Reconnects: 1, Acks: 1}
+	pc := Counters{QueueDepth: 0, Sent: 30, Reconnects: 1, Acks: 1, QueueError: "write events.log: no space left on device"}
 	src := Source{Run: "4f2a91c0", Host: "board7", Since: at.Add(-time.Hour), Version: "v0.9.0"}
 	golden(t, "status.json", Status("bed1", 5, "online", "", src, st, pc, at))
 	golden(t, "status_offline.json", Status("bed1", 6, "offline", "stopped", src, stream.Status{Device: "bed1"}, Counters{}, at))

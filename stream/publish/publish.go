@@ -531,9 +531,9 @@ out:
 
 // Counters returns the publisher's counts now.
 func (p *Publisher) Counters() payload.Counters {
-	unq, _ := p.sp.counts()
+	unq, lastErr := p.sp.counts()
 	return payload.Counters{QueueDepth: int64(p.sp.depth() + len(p.q0)), Dropped: p.dropped.Load(), Sent: p.sent.Load(),
-		Reconnects: p.reconnects.Load(), Acks: p.acks.Load(), AcksRefused: p.rejected.Load(), Unqueued: unq}
+		Reconnects: p.reconnects.Load(), Acks: p.acks.Load(), AcksRefused: p.rejected.Load(), Unqueued: unq, QueueError: lastErr}
 }
 
 func (p *Publisher) statusPayload(state, reason string) []byte {
