@@ -178,6 +178,9 @@ type Decoder struct {
 
 	resolved bool
 	delim    byte
+	// headerUnits are the units the header's names carry, by kind
+	headerUnits [5]string
+	commaBuf    [64]byte // scratch for a number with a decimal comma
 	// how the columns were resolved: autoDelim when the delimiter was
 	// detected, fromHeader when a header named the columns; misses counts
 	// field-count misses since the last good sample (at missAt samples),
@@ -264,6 +267,14 @@ func (d *Decoder) Format() Format {
 		for i := 0; i < d.ncols; i++ {
 			f.Columns = append(f.Columns, kindName(d.kinds[i], i))
 		}
+		for k, u := range d.headerUnits { // the header's units, unless given
+			if name := kindName(colKind(k), 0); u != "" && f.Units[name] == "" {
+				if f.Units == nil {
+					f.Units = map[string]string{}
+				}
+				f.Units[name] = u
+			}
+		}
 	}
 	return f
 }
@@ -331,6 +342,12 @@ func (d *Decoder) Decode(s *Sample) error {
 		if tooLong {
 			d.index++
 			return d.bad(CauseTooLong, -1)
+		}
+		if d.counts.Lines == 1 {
+			if line, err = sniff(line); err != nil {
+				d.fatal = &FormatError{Line: 1, Err: err}
+				return d.fatal
+			}
 		}
 		line = trimSpace(line)
 		if len(line) == 0 {
@@ -515,7 +532,11 @@ func (d *Decoder) resolve(line []byte) (header bool, err error) {
 	}
 	d.scale = [5]float64{1, 1, 1, 1, 1}
 	for k := kindT; k <= kindVol; k++ {
-		if u, ok := f.Units[kindName(k, 0)]; ok {
+		u, ok := f.Units[kindName(k, 0)]
+		if !ok && d.headerUnits[k] != "" { // the header's unit, unless one was given
+			u, ok = d.headerUnits[k], true
+		}
+		if ok {
 			d.scale[k], _ = UnitFactor(kindName(k, 0), u)
 		}
 	}
@@ -542,7 +563,7 @@ func mayTellDelimiter(line []byte) bool {
 
 func namesKnownColumn(names []string) bool {
 	for _, n := range names {
-		if isKnownColumn(strings.TrimSpace(n)) {
+		if c, _ := columnOf(n); c != "" {
 			return true
 		}
 	}
@@ -577,10 +598,12 @@ func (d *Decoder) splitNames(line []byte) ([]string, bool) {
 func (d *Decoder) setColumns(names []string) error {
 	d.ncols = len(names)
 	d.hasT, d.hasVol = false, false
+	d.headerUnits = [5]string{}
 	var seen [5]bool
 	for i, n := range names {
 		k := kindIgnore
-		switch strings.ToLower(strings.TrimSpace(n)) {
+		col, unit := columnOf(n)
+		switch col {
 		case ColT:
 			k, d.hasT = kindT, true
 		case ColPaw:
@@ -592,6 +615,9 @@ func (d *Decoder) setColumns(names []string) error {
 		}
 		if k != kindIgnore && seen[k] {
 			return fmt.Errorf("column %q named twice", n)
+		}
+		if k != kindIgnore {
+			d.headerUnits[k] = unit
 		}
 		seen[k] = true
 		d.kinds[i] = k
@@ -623,6 +649,39 @@ func (d *Decoder) cut(b []byte) (field, rest []byte, more bool) {
 	return trimSpace(b[:i]), b[i+1:], true
 }
 
+// decimalComma reads a number written with a decimal comma ("5,25"), as
+// spreadsheets in many countries write them, when the delimiter is not a
+// comma; buf is scratch space for the copy.
+func decimalComma(field []byte, buf *[64]byte) (float64, numKind) {
+	i := bytes.IndexByte(field, ',')
+	if i < 0 || len(field) > len(buf) || bytes.IndexByte(field[i+1:], ',') >= 0 || bytes.IndexByte(field, '.') >= 0 {
+		return 0, numSyntax
+	}
+	b := append(buf[:0], field...)
+	b[i] = '.'
+	return parseNumber(b)
+}
+
+// sniff looks at the first line of a stream for what is not sample lines
+// at all, and skips a UTF-8 byte-order mark.
+func sniff(line []byte) ([]byte, error) {
+	switch {
+	case bytes.HasPrefix(line, []byte("\xef\xbb\xbf")):
+		return line[3:], nil
+	case bytes.HasPrefix(line, []byte("\xff\xfe")), bytes.HasPrefix(line, []byte("\xfe\xff")):
+		return nil, errors.New("the stream is UTF-16 text: save it as UTF-8 (or plain ASCII) text")
+	case bytes.HasPrefix(line, []byte("\x89PNG")):
+		return nil, errors.New("this is a PNG image, not sample lines")
+	case bytes.HasPrefix(line, []byte("\xff\xd8\xff")):
+		return nil, errors.New("this is a JPEG image, not sample lines")
+	case bytes.HasPrefix(line, []byte("%PDF")):
+		return nil, errors.New("this is a PDF document, not sample lines")
+	case bytes.HasPrefix(line, []byte("PK\x03\x04")):
+		return nil, errors.New("this is a ZIP archive (a spreadsheet's own format?), not sample lines: export it as CSV text")
+	}
+	return line, nil
+}
+
 // parse decodes one data line on the general path.
 func (d *Decoder) parse(line []byte, s *Sample) error {
 	vals := &d.vals
@@ -638,6 +697,9 @@ func (d *Decoder) parse(line []byte, s *Sample) error {
 			continue
 		}
 		v, nk := parseNumber(field)
+		if nk == numSyntax && d.delim != ',' {
+			v, nk = decimalComma(field, &d.commaBuf)
+		}
 		switch nk {
 		case numSyntax:
 			if d.countFields(line) != d.ncols {

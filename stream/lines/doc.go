@@ -17,8 +17,14 @@
 //   - a data line: one sample, one field per column.
 //
 // Fields are separated by ',' ';' a tab, or runs of spaces. With the default
-// delimiter "auto" the first non-comment line decides, preferring ';' then
-// ',' then tab then spaces. Blank space around a field is ignored.
+// delimiter "auto" the first non-comment line that has more than one field
+// decides, preferring ';' then ',' then tab then spaces (a lone number, as
+// a port opened mid-line delivers, is a bad line); when five lines in a
+// row then have the wrong number of fields, the next line decides again.
+// Blank space around a field is ignored. When the delimiter is not a
+// comma, a decimal comma is read as a decimal point ("5,25"). A UTF-8
+// byte-order mark is skipped; UTF-16 text, images, PDF and ZIP files are
+// refused with a word saying what they are.
 //
 // Column names (case does not matter):
 //
@@ -27,7 +33,12 @@
 //	flow  flow, positive into the patient     L/min (default) | L/s | mL/s
 //	vol   volume, optional cross-check        mL (default) | L
 //
-// Other column names are ignored. Without a header the configured column
+// A header may also name them as devices and spreadsheets do — time,
+// pressure, airway pressure, volume — and give a unit in brackets or as a
+// suffix: "Time [s]", "Paw (mbar)", "Flow [L/s]", "time_ms",
+// "pressure_cmH2O", "flow_lpm". Such a unit is used unless one was given
+// (--unit, a format directive). Other column names are ignored, whatever
+// their number. Without a header the configured column
 // order is used; the default is t,paw,flow. Without a t column the rate
 // (Format.RateHz) is required and the time of a data line is its index over
 // the rate (bad data lines keep their slot in time).
