@@ -49,5 +49,7 @@ func Defaults() []Rule {
 			Level: LevelWarning, Source: "technical"},
 		{ID: "port_lost", Field: "port_lost", Compare: Above, Threshold: 0.5, RaiseAfter: 2, ClearAfter: 1,
 			Level: LevelUrgent, Source: "technical"},
+		{ID: "format_suspect", Field: "format_suspect", Compare: Above, Threshold: 0.5, RaiseAfter: 1, ClearAfter: 1,
+			Level: LevelWarning, Source: "technical: the numbers look like a format read wrongly; the status says which flag fixes it"},
 	}
 }

@@ -29,12 +29,15 @@ type Tech struct {
 	BadPerMin   float64 // bad lines over the last minute
 	RateError   float64 // |seen − configured| / configured sample rate, %
 	PortLost    float64 // 1: the serial port is gone
+	// FormatSuspect is 1 when the numbers look like a format read wrongly
+	// (flow in L/s taken for L/min, a reversed flow sign, …)
+	FormatSuspect float64
 }
 
 // Unknown is a Tech with every field NaN.
 func Unknown() Tech {
 	n := math.NaN()
-	return Tech{n, n, n, n, n, n}
+	return Tech{n, n, n, n, n, n, n}
 }
 
 // Event is one transition of one rule.
@@ -210,6 +213,8 @@ func techValue(field string, t *Tech) float64 {
 		return t.RateError
 	case "port_lost":
 		return t.PortLost
+	case "format_suspect":
+		return t.FormatSuspect
 	}
 	return math.NaN()
 }

@@ -68,7 +68,7 @@ type Rule struct {
 var validRuleID = regexp.MustCompile(`^[a-z0-9_]{1,48}$`)
 
 // technical fields are evaluated on ticks, not breaths.
-var technical = map[string]bool{"since_sample": true, "since_breath": true, "circuit_open": true,
+var technical = map[string]bool{"since_sample": true, "since_breath": true, "circuit_open": true, "format_suspect": true,
 	"bad_per_min": true, "rate_error": true, "port_lost": true}
 
 // Validate reports the first unusable setting.

@@ -14,6 +14,8 @@ import (
 	"breathd/alerts"
 	"breathd/device"
 	"breathd/mechanics"
+	"breathd/mechanics/lungsim"
+	"breathd/stream/lines"
 
 	"github.com/rs/zerolog"
 )
@@ -165,5 +167,56 @@ func TestRecordingCountersAndNoFalseHealth(t *testing.T) {
 	}
 	if !st.Recorded || st.Recording.Files != 1 || st.Recording.WriteErrors != 0 {
 		t.Errorf("recording counters %+v (recorded %v)", st.Recording, st.Recorded)
+	}
+}
+
+// TestFormatSuspectIsATechnicalCondition: on a stream whose flow is in
+// L/s read as L/min, the format_suspect rule is raised and the status
+// names the flag that fixes it. (Issue 17.)
+func TestFormatSuspectIsATechnicalCondition(t *testing.T) {
+	sc := lungsim.Scenario{Seed: 2, RateHz: 50, Duration: time.Minute,
+		Settings: lungsim.Settings{Mode: lungsim.ModeVC, R: 10, C: 50, PEEP: 5, RR: 15, VT: 500, Ti: 1, Pause: 0.3}}
+	sc.Defaults()
+	var b strings.Builder
+	b.WriteString("t,paw,flow\n")
+	sim := lungsim.NewSim(sc, nil)
+	var s lungsim.SimSample
+	for sim.Next(&s) {
+		b.WriteString(strconv.FormatFloat(s.T, 'f', 2, 64) + "," + strconv.FormatFloat(s.Paw, 'f', 2, 64) + "," +
+			strconv.FormatFloat(s.Flow/60, 'f', 4, 64) + "\n")
+	}
+	ev := &events{at: map[string]time.Time{}}
+	st, err := Run(context.Background(), io.NopCloser(strings.NewReader(b.String())), Config{Device: "lps", Rules: alerts.Defaults(), Sink: ev})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, ok := ev.at["format_suspect raised"]; !ok || !strings.Contains(st.Hint, "--unit flow=L/s") {
+		t.Errorf("events %v, hint %q", ev.at, st.Hint)
+	}
+}
+
+// TestNoFalseRateErrorWhenDecodingAhead: a stream without a time column
+// at its configured rate raises no sample_rate_off when the decoder runs
+// ahead of the analysis (analyze), as it raises none inline (replay).
+// (Issue 17.)
+func TestNoFalseRateErrorWhenDecodingAhead(t *testing.T) {
+	var b strings.Builder
+	for i := range 50 * 120 {
+		flow := 30.0
+		if i%200 >= 60 {
+			flow = -20
+		}
+		b.WriteString("5.0," + strconv.FormatFloat(flow, 'f', 1, 64) + "\n")
+	}
+	for _, ahead := range []bool{false, true} {
+		ev := &events{at: map[string]time.Time{}}
+		_, err := Run(context.Background(), io.NopCloser(strings.NewReader(b.String())), Config{Device: "norate",
+			Format: lines.Format{Columns: []string{"paw", "flow"}, RateHz: 50}, Rules: alerts.Defaults(), Sink: ev, Ahead: ahead})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if _, ok := ev.at["sample_rate_off raised"]; ok {
+			t.Errorf("ahead %v: sample_rate_off raised on a stream at its rate", ahead)
+		}
 	}
 }

@@ -89,8 +89,11 @@ type Status struct {
 	HasHealth bool
 	Recording device.RecordStats // the raw recording's, when the source records
 	Recorded  bool
-	Elapsed   time.Duration // since Run started
-	Final     bool
+	// Hint names the likely cause when the numbers look like a format read
+	// wrongly, and the flag that fixes it; "" when they look right
+	Hint    string
+	Elapsed time.Duration // since Run started
+	Final   bool
 }
 
 // Control acknowledges a device's events from outside its loop and reads
@@ -156,7 +159,7 @@ const tickEvery = 1.0 // s
 // end of src and a cancelled ctx are clean ends (nil error); a stream that
 // cannot be decoded, or a read error, is returned.
 func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
-	l := &loop{cfg: cfg, src: src, start: time.Now(), lastBreathT: math.NaN(), lastT: math.NaN()}
+	l := &loop{cfg: cfg, src: src, start: time.Now(), lastBreathT: math.NaN(), lastT: math.NaN(), san: newSanity()}
 	dec, err := lines.NewDecoder(snapReader{l}, cfg.Format)
 	if err == nil {
 		// sized for up to 1000 Hz whatever the stream turns out to be
@@ -218,6 +221,9 @@ func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
 	close(done)
 	wg.Wait()
 	src.Close()
+	l.snapshot()
+	c := l.counts()
+	l.setHint(l.san.hint(&c)) // a short stream may end before its first tick
 	st := l.status()
 	st.Final = true
 	if cfg.Report != nil {
@@ -257,6 +263,9 @@ type loop struct {
 	aheadOn bool // set before decoding starts
 
 	headerWarn Throttle // unusable headers: logged once a minute at most
+	nSamples   int64    // samples analysed (the decoder's count may run ahead)
+	san        sanity   // signs of a format read wrongly
+	hint       string   // the current one, "" when none
 
 	mu    sync.Mutex // guards the snapshot
 	snap  lines.Counts
@@ -264,6 +273,8 @@ type loop struct {
 	snapD mechanics.Drops
 	snapC mechanics.Channels
 	snapE int64
+	// snapHint is the hint as of the latest tick
+	snapHint string
 }
 
 func (l *loop) run(ctx context.Context) error {
@@ -309,6 +320,8 @@ const runBatch = 256
 
 // sample is the analysis of one sample.
 func (l *loop) sample(s *lines.Sample) {
+	l.nSamples++
+	l.san.sample(s.Paw, s.Flow)
 	if b := l.seg.Add(s.T, s.Paw, s.Flow, s.Gap); b != nil {
 		l.breath(b, s.T)
 	}
@@ -405,6 +418,7 @@ func (l *loop) decodeAhead(full, free chan *batch) {
 // being analysed.
 func (l *loop) breath(b *mechanics.Breath, cur float64) {
 	b.At = l.wall(b.TStart, cur)
+	l.san.breath(b)
 	l.win.Add(b)
 	l.lastBreathT = b.TEnd
 	if l.cfg.Sink != nil {
@@ -488,15 +502,25 @@ func (l *loop) tick(s *lines.Sample) {
 	}
 	k := l.ticks % int64(len(l.sampleRing))
 	oldN, oldT := l.sampleRing[k], l.tickTRing[k]
-	l.sampleRing[k], l.tickTRing[k] = c.Samples, s.T
+	l.sampleRing[k], l.tickTRing[k] = l.nSamples, s.T
 	if want := l.cfg.Format.RateHz; want > 0 && l.ticks > int64(len(l.sampleRing)) && s.T > oldT {
-		seen := float64(c.Samples-oldN) / (s.T - oldT)
+		seen := float64(l.nSamples-oldN) / (s.T - oldT)
 		tech.RateError = math.Abs(seen-want) / want * 100
 	}
 	if h, ok := device.HealthOf(l.src); ok && !h.Connected {
 		tech.PortLost = 1
 	} else {
 		tech.PortLost = 0
+	}
+	tech.FormatSuspect = 0
+	if h := l.san.hint(&c); h != "" {
+		tech.FormatSuspect = 1
+		if h != l.hint {
+			l.cfg.Log.Warn().Str("hint", h).Msg("the numbers look like a format read wrongly")
+		}
+		l.setHint(h)
+	} else if l.hint != "" {
+		l.setHint("")
 	}
 	l.emu.Lock()
 	l.lastT = s.T
@@ -588,10 +612,19 @@ func (l *loop) snapshot() {
 	l.mu.Unlock()
 }
 
+// setHint records the current hint for the status; the loop's goroutine
+// owns l.hint, the snapshot mutex guards the copy others read.
+func (l *loop) setHint(h string) {
+	l.hint = h
+	l.mu.Lock()
+	l.snapHint = h
+	l.mu.Unlock()
+}
+
 func (l *loop) status() Status {
 	l.mu.Lock()
 	st := Status{Device: l.cfg.Device, Counts: l.snap, Breaths: l.snapB, Drops: l.snapD, Channels: l.snapC,
-		Events: l.snapE, Elapsed: time.Since(l.start)}
+		Events: l.snapE, Elapsed: time.Since(l.start), Hint: l.snapHint}
 	l.mu.Unlock()
 	st.Health, st.HasHealth = device.HealthOf(l.src)
 	if r, ok := l.src.(device.Recording); ok {

@@ -66,6 +66,9 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		runErr = err
 	}
 	sum.print(stderr, st, time.Since(start))
+	if runErr == nil {
+		runErr = nothingDecoded(o.path, st)
+	}
 	if pd != nil && runErr == nil {
 		if err := plot.Write(o.plot, o.path, o.format, o.plotFrom, o.plotSpan, pd); err != nil {
 			return fmt.Errorf("--plot: %w", err)
@@ -325,6 +328,9 @@ func (s *summary) print(w io.Writer, st stream.Status, took time.Duration) {
 	d := st.Drops
 	fmt.Fprintf(w, "; gaps %d; breaths dropped: gap %d, open circuit %d, too long %d; rule events %d\n",
 		c.Gaps, d.Gap, d.Open, d.TooLong, st.Events)
+	if st.Hint != "" {
+		fmt.Fprintf(w, "  check: %s\n", st.Hint)
+	}
 	if s.n == 0 {
 		return
 	}
@@ -372,4 +378,28 @@ func channelsText(c mechanics.Channels) string {
 		fmt.Fprintf(&b, "; noise σ %.2f cmH2O, %.2f L/min", c.PawSD, c.FlowSD)
 	}
 	return b.String()
+}
+
+// nothingDecoded is the error of a run that decoded no sample: it says
+// what the lines were, and what to try.
+func nothingDecoded(path string, st stream.Status) error {
+	c := st.Counts
+	if c.Samples > 0 {
+		return nil
+	}
+	if c.Lines == 0 {
+		return fmt.Errorf("%s: no sample decoded: the input is empty", path)
+	}
+	why := "check the delimiter and the columns (--delimiter, --columns, --unit; see breathd help)"
+	switch {
+	case c.Bad[lines.CauseNotNumber]*2 > c.BadTotal():
+		why = "most lines have fields that are not numbers: is the delimiter or the decimal mark another? (--delimiter; a decimal comma needs ';' between fields)"
+	case c.Bad[lines.CauseFieldCount]*2 > c.BadTotal():
+		why = "most lines have another number of fields than the columns: name them with a header line or --columns"
+	case c.Bad[lines.CauseOutOfRange]*2 > c.BadTotal():
+		why = "most values are out of range: is a unit other than cmH2O and L/min? (--unit paw=mbar, --unit flow=L/s, …)"
+	case c.Bad[lines.CauseBadHeader] > 0:
+		why = "the header does not name paw and flow: rename them or give --columns"
+	}
+	return fmt.Errorf("%s: no sample decoded from %d lines (bad: %s): %s", path, c.Lines, c.BadCauses(), why)
 }

@@ -28,6 +28,7 @@ type deviceRun struct {
 	mechanics mechanics.Config
 	rules     []alerts.Rule
 	live      bool
+	recording string // the file replayed: a run of it that decodes nothing is an error
 }
 
 func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -108,7 +109,7 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		return err
 	}
 	return runDevices(ctx, []deviceRun{{id: dev, src: src, format: f, mechanics: mcfg, rules: alerts.Defaults(),
-		live: sp > 0 || path == "-"}}, *every, stdout, log, sess)
+		live: sp > 0 || path == "-", recording: path}}, *every, stdout, log, sess)
 }
 
 func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -249,8 +250,11 @@ func runDevices(ctx context.Context, runs []deviceRun, every time.Duration, stdo
 				}
 				sinks = append(sinks, pub)
 			}
-			_, err := stream.Run(ctx, r.src, stream.Config{Device: r.id, Format: r.format, Mechanics: r.mechanics,
+			st, err := stream.Run(ctx, r.src, stream.Config{Device: r.id, Format: r.format, Mechanics: r.mechanics,
 				Rules: r.rules, Live: r.live, Every: every, Report: report, Log: dlog, Sink: sinks, Control: ctl})
+			if err == nil && r.recording != "" && ctx.Err() == nil {
+				err = nothingDecoded(r.recording, st)
+			}
 			if pub != nil {
 				closePublisher(pub, dlog)
 			}

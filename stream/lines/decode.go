@@ -122,6 +122,8 @@ type Counts struct {
 	SegFirstT   float64
 	SegFrom     int64
 	EarlierSpan float64
+	// of the out_of_range lines, those whose pressure or flow was out
+	PawOutOfRange, FlowOutOfRange int64
 }
 
 // Span is the stream time covered by good samples: the sum of the
@@ -725,9 +727,11 @@ func (d *Decoder) finish(vals *[5]float64, out *Sample) error {
 		s.Vol = vals[kindVol] * d.scale[kindVol]
 	}
 	if s.Paw < PawMin || s.Paw > PawMax {
+		d.counts.PawOutOfRange++
 		return d.bad(CauseOutOfRange, d.column(kindPaw))
 	}
 	if s.Flow < -FlowMax || s.Flow > FlowMax {
+		d.counts.FlowOutOfRange++
 		return d.bad(CauseOutOfRange, d.column(kindFlow))
 	}
 	if d.hasVol && (s.Vol < -VolMax || s.Vol > VolMax) {

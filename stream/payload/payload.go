@@ -216,9 +216,10 @@ func Status(device string, seq int64, state, reason string, src Source, st strea
 		Host     string         `json:"host,omitempty"`
 		Since    stamp          `json:"since"`
 		Version  string         `json:"version,omitempty"`
+		Hint     string         `json:"format_hint"`
 		Advisory string         `json:"advisory"`
 		Counters map[string]any `json:"counters"`
-	}{Version, device, seq, state, reason, stamp(at), src.Run, src.Host, stamp(src.Since), src.Version, stream.Advisory, counters})
+	}{Version, device, seq, state, reason, stamp(at), src.Run, src.Host, stamp(src.Since), src.Version, st.Hint, stream.Advisory, counters})
 	return out
 }
 
