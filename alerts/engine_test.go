@@ -3,6 +3,7 @@ package alerts
 import (
 	"errors"
 	"math"
+	"strings"
 	"testing"
 	"time"
 
@@ -257,5 +258,15 @@ func TestDisownedValuesChangeNothing(t *testing.T) {
 	}
 	if len(got) != 1 || got[0] != "plateau_high raised" {
 		t.Errorf("trusted values: %v on the third", got)
+	}
+}
+
+// TestMisspelledRuleID: an override whose id is not a rule's and that
+// names no field is a misspelling: the error names the id and the
+// nearest one. (Issue 17.)
+func TestMisspelledRuleID(t *testing.T) {
+	_, err := Merge(Defaults(), []Override{{ID: "plateau_hihg", Threshold: new(28.0)}})
+	if err == nil || !strings.Contains(err.Error(), `"plateau_hihg" is not one of the rules (did you mean "plateau_high"?)`) {
+		t.Errorf("misspelled id: %v", err)
 	}
 }

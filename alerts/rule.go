@@ -189,6 +189,10 @@ func Merge(defaults []Rule, overrides []Override) ([]Rule, error) {
 			}
 		}
 		if i < 0 {
+			if o.Field == nil { // a new rule names its field: this is more likely a misspelled id
+				return nil, fmt.Errorf("rule %q is not one of the rules%s; a new rule needs field, compare, threshold, raise_after, clear_after and level",
+					o.ID, nearest(o.ID, out))
+			}
 			out = append(out, Rule{ID: o.ID})
 			i = len(out) - 1
 		}
@@ -216,3 +220,39 @@ var ErrAcknowledged = errors.New("already acknowledged")
 
 // ErrUnknownEvent is returned by Ack for an id no raised rule carries.
 var ErrUnknownEvent = errors.New("no raised rule has that event id")
+
+// nearest says which rule id is closest to id, as ` (did you mean "x"?)`,
+// or "" when none is close.
+func nearest(id string, rules []Rule) string {
+	best, bestD := "", 4 // more than three edits away is no suggestion
+	for _, r := range rules {
+		if d := editDistance(id, r.ID); d < bestD {
+			best, bestD = r.ID, d
+		}
+	}
+	if best == "" {
+		return ""
+	}
+	return fmt.Sprintf(" (did you mean %q?)", best)
+}
+
+// editDistance is the Levenshtein distance between a and b.
+func editDistance(a, b string) int {
+	prev := make([]int, len(b)+1)
+	cur := make([]int, len(b)+1)
+	for j := range prev {
+		prev[j] = j
+	}
+	for i := 1; i <= len(a); i++ {
+		cur[0] = i
+		for j := 1; j <= len(b); j++ {
+			cost := 1
+			if a[i-1] == b[j-1] {
+				cost = 0
+			}
+			cur[j] = min(prev[j]+1, cur[j-1]+1, prev[j-1]+cost)
+		}
+		prev, cur = cur, prev
+	}
+	return prev[len(b)]
+}

@@ -3,6 +3,7 @@ package main
 import (
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"syscall"
 	"testing"
@@ -80,5 +81,31 @@ func TestSimulatePtyStopsWhenNobodyReads(t *testing.T) {
 	last = last[strings.LastIndex(last, "\n")+1:]
 	if !strings.HasPrefix(last, "stopped after ") || !strings.Contains(last, "of the 1h0m0s scenario") {
 		t.Errorf("last line %q", last)
+	}
+}
+
+// TestCleanStopIsQuiet: SIGTERM with a subscriber connected to the
+// embedded broker ends without a warning. (Issue 17: every clean stop
+// printed "use of closed network connection".)
+func TestCleanStopIsQuiet(t *testing.T) {
+	t.Parallel() // a process of its own, on its own ports and files
+	listen := "127.0.0.1:" + strconv.Itoa(freePort(t))
+	cmd := breathd("replay", "--speed", "10", "--id", "quiet", "--listen", listen, "testdata/demo.txt.gz")
+	out := &syncBuffer{}
+	cmd.Stdout, cmd.Stderr = out, out
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	waitFor(t, "the broker", 10*time.Second, func() bool { return strings.Contains(out.String(), "embedded MQTT broker started") })
+	c := collectBreaths(t, "mqtt://"+listen)
+	waitFor(t, "a breath", 10*time.Second, func() bool { return len(c.seqs("quiet")) > 0 })
+	cmd.Process.Signal(syscall.SIGTERM)
+	if err := cmd.Wait(); err != nil {
+		t.Fatalf("exit: %v", err)
+	}
+	for _, line := range strings.Split(out.String(), "\n") {
+		if strings.Contains(line, `"level":"warn"`) || strings.Contains(line, `"level":"error"`) {
+			t.Errorf("a clean stop said: %s", line)
+		}
 	}
 }

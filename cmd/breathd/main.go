@@ -11,6 +11,7 @@ import (
 	"os"
 	"os/signal"
 	"runtime/debug"
+	"strings"
 	"syscall"
 	"time"
 
@@ -118,10 +119,32 @@ func newFlags(name, synopsis string, stderr io.Writer) *flag.FlagSet {
 	fs := flag.NewFlagSet(name, flag.ContinueOnError)
 	fs.SetOutput(stderr)
 	fs.Usage = func() {
-		fmt.Fprintf(stderr, "Usage: breathd %s\n\nNOTICE: %s\n\nFlags:\n", synopsis, stream.Advisory)
-		fs.PrintDefaults()
+		fmt.Fprintf(stderr, "Usage: breathd %s\n\nNOTICE: %s\n", synopsis, stream.Advisory)
+		printFlags(stderr, fs)
 	}
 	return fs
+}
+
+// printFlags lists a verb's flags as the README writes them, --name, and
+// nothing when the verb has none.
+func printFlags(w io.Writer, fs *flag.FlagSet) {
+	first := true
+	fs.VisitAll(func(f *flag.Flag) {
+		if first {
+			fmt.Fprint(w, "\nFlags:\n")
+			first = false
+		}
+		name, usage := flag.UnquoteUsage(f)
+		line := "  --" + f.Name
+		if name != "" {
+			line += " " + name
+		}
+		fmt.Fprintf(w, "%s\n    \t%s", line, strings.ReplaceAll(usage, "\n", "\n    \t"))
+		if f.DefValue != "" && f.DefValue != "false" && f.DefValue != "0" {
+			fmt.Fprintf(w, " (default %s)", f.DefValue)
+		}
+		fmt.Fprintln(w)
+	})
 }
 
 // parseFlags parses args; a bad flag is a usage error in one line.
@@ -138,6 +161,12 @@ func parseFlags(fs *flag.FlagSet, args []string) error {
 	}
 	if err != nil {
 		return usagef("%s: %w (see breathd %s -h)", fs.Name(), err, fs.Name())
+	}
+	// a flag after the first argument is taken as an argument: say so
+	for _, a := range fs.Args()[min(1, fs.NArg()):] {
+		if len(a) > 1 && a[0] == '-' {
+			return usagef("flags go before the recording or other arguments: breathd %s %s … %s", fs.Name(), a, fs.Arg(0))
+		}
 	}
 	return nil
 }

@@ -96,6 +96,7 @@ func TestUserErrors(t *testing.T) {
 		{"config missing", []string{"check", "/nonexistent.yaml"}, 1, "does not exist"},
 		{"absent port", []string{"run", "--no-mqtt", "--config", absent}, 1, "serial port /dev/breathd-no-such-port: file does not exist: check the cable"},
 		{"not a recording", []string{"replay", "--no-mqtt", "--speed", "max", "testdata"}, 1, "is a directory"},
+		{"flag after the file", []string{"analyze", "testdata/bad-lines.txt", "--csv", "x.csv"}, 2, "flags go before the recording or other arguments: breathd analyze --csv … testdata/bad-lines.txt"},
 		{"tiny report period", []string{"replay", "--report-every", "1ns", "x"}, 2, "--report-every 1ns: want 0 (the default) or at least 100ms"},
 		{"NaN rate", []string{"replay", "--rate-hz", "NaN", "--columns", "paw,flow", "x"}, 2, "rate_hz NaN out of range"},
 		{"NaN speed", []string{"replay", "--speed", "NaN", "x"}, 2, `--speed "NaN"`},
@@ -121,6 +122,21 @@ func TestUserErrors(t *testing.T) {
 				t.Errorf("stack trace on stderr: %s", errs)
 			}
 		})
+	}
+}
+
+// TestHelpShowsDoubleDashes: -h lists flags as the README writes them
+// (--csv), and a verb without flags lists none. (Issue 17.)
+func TestHelpShowsDoubleDashes(t *testing.T) {
+	_, out, errs := runCLI(t, "analyze", "-h")
+	if help := out + errs; !strings.Contains(help, "\n  --csv string") || strings.Contains(help, "\n  -csv") {
+		t.Errorf("analyze -h:\n%s", help)
+	}
+	for _, verb := range []string{"check", "ports"} {
+		_, out, errs := runCLI(t, verb, "-h")
+		if strings.Contains(out+errs, "Flags:") {
+			t.Errorf("%s -h shows an empty flag list:\n%s", verb, out+errs)
+		}
 	}
 }
 

@@ -16,6 +16,7 @@ package broker
 
 import (
 	"bufio"
+	"context"
 	"crypto/rand"
 	"crypto/subtle"
 	"crypto/tls"
@@ -150,7 +151,7 @@ func Start(cfg Config, log zerolog.Logger) (*Broker, error) {
 		level = zerolog.WarnLevel // client connects are routine
 	}
 	blog := log.With().Str("component", "broker").Logger().Level(level)
-	srv := mochi.New(&mochi.Options{InlineClient: false, Logger: slog.New(zerolog.NewSlogHandler(blog))})
+	srv := mochi.New(&mochi.Options{InlineClient: false, Logger: slog.New(quietClose{zerolog.NewSlogHandler(blog)})})
 	srv.Options.Capabilities.MaximumMessageExpiryInterval = 0 // keep retained messages
 	srv.Options.Capabilities.MaximumClients = cfg.Limits.Clients
 	srv.Options.Capabilities.MaximumPacketSize = cfg.Limits.Packet
@@ -161,7 +162,7 @@ func Start(cfg Config, log zerolog.Logger) (*Broker, error) {
 	if err := srv.AddListener(tcp); err != nil {
 		srv.Close()
 		if errors.Is(err, syscall.EADDRINUSE) {
-			return nil, fmt.Errorf("%w: %s is taken, probably by another MQTT broker: use that one with --broker mqtt://%s, or start the embedded one elsewhere with --listen 127.0.0.1:1884",
+			return nil, fmt.Errorf("%w: %s is taken, probably by another breathd or MQTT broker: publish there with --broker mqtt://%s and a device id of this run's own (--id; watch then needs --broker too), or start the embedded one elsewhere with --listen 127.0.0.1:1884",
 				ErrPortBusy, cfg.Listen, cfg.Listen)
 		}
 		return nil, fmt.Errorf("broker listen on %s: %w", cfg.Listen, err)
@@ -355,3 +356,27 @@ func (b *Broker) Close() error {
 	b.once.Do(func() { err = b.srv.Close() })
 	return err
 }
+
+// quietClose drops the broker's reports of reading from a connection that
+// was closed: at every clean stop each connected client's read ends so,
+// and it is not a fault.
+type quietClose struct{ slog.Handler }
+
+func (q quietClose) Handle(ctx context.Context, r slog.Record) error {
+	closed := false
+	r.Attrs(func(a slog.Attr) bool {
+		if err, ok := a.Value.Any().(error); ok && (errors.Is(err, net.ErrClosed) || strings.Contains(err.Error(), "use of closed network connection")) {
+			closed = true
+		}
+		return !closed
+	})
+	if closed {
+		return nil
+	}
+	return q.Handler.Handle(ctx, r)
+}
+
+func (q quietClose) WithAttrs(as []slog.Attr) slog.Handler {
+	return quietClose{q.Handler.WithAttrs(as)}
+}
+func (q quietClose) WithGroup(name string) slog.Handler { return quietClose{q.Handler.WithGroup(name)} }

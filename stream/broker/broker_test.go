@@ -38,7 +38,7 @@ func TestRefusesOpenNonLoopback(t *testing.T) {
 	}
 	defer b.Close()
 	_, err = Start(Config{Listen: b.Addr()}, zerolog.Nop())
-	if !errors.Is(err, ErrPortBusy) || !strings.Contains(err.Error(), "use that one with --broker mqtt://"+b.Addr()) {
+	if !errors.Is(err, ErrPortBusy) || !strings.Contains(err.Error(), "publish there with --broker mqtt://"+b.Addr()+" and a device id of this run's own") {
 		t.Errorf("busy port: %v", err)
 	}
 	if _, err := Start(Config{Listen: "no-port"}, zerolog.Nop()); err == nil || !strings.Contains(err.Error(), "want host:port") {
