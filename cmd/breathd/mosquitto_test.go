@@ -450,13 +450,20 @@ func TestWillAndSIGTERM(t *testing.T) {
 	t.Parallel() // a process of its own, on its own ports and files
 	m := startMosquitto(t, "", nil)
 	c := collect(t, m.url("mqtt"), "will-collector", nil, "", "")
+	out := &syncBuffer{}
 	start := func() *exec.Cmd {
 		cmd := breathd("replay", "--speed", "1", "--id", "bed5", "--broker", m.url("mqtt"), "testdata/demo.txt.gz")
+		cmd.Stdout, cmd.Stderr = out, out
 		if err := cmd.Start(); err != nil {
 			t.Fatal(err)
 		}
 		return cmd
 	}
+	defer func() {
+		if t.Failed() {
+			t.Logf("breathd said:\n%s", tail([]byte(out.String())))
+		}
+	}()
 	online := func() bool {
 		_, _, st := c.snapshot()
 		return len(st) > 0 && st[len(st)-1]["state"] == "online"
