@@ -13,6 +13,11 @@ type WindowConfig struct {
 	Span     float64 // and none older than this, s; default 300
 	Baseline float64 // the baseline is the Baseline seconds before the window; default 1800
 	RiseMin  float64 // a peak pressure rise below this is not attributed, cmH2O; default 3
+	// The slopes are fitted over the breaths of the last SlopeSpan seconds
+	// (default 900) and given only when those span at least SlopeMin
+	// seconds (default 600): a slope per hour from a minute of breaths is
+	// noise.
+	SlopeSpan, SlopeMin float64
 }
 
 // Defaults fills the unset fields.
@@ -29,6 +34,12 @@ func (c *WindowConfig) Defaults() {
 	if c.RiseMin == 0 {
 		c.RiseMin = 3
 	}
+	if c.SlopeSpan == 0 {
+		c.SlopeSpan = 900
+	}
+	if c.SlopeMin == 0 {
+		c.SlopeMin = 600
+	}
 }
 
 // Validate reports an unusable setting.
@@ -38,6 +49,9 @@ func (c *WindowConfig) Validate() error {
 	}
 	if c.Span <= 0 || c.Baseline <= 0 || c.Span+c.Baseline > 6*3600 || c.RiseMin < 0 {
 		return errors.New("window span and baseline must be positive, together at most 6 h")
+	}
+	if c.SlopeMin <= 0 || c.SlopeSpan < c.SlopeMin || c.SlopeSpan > 6*3600 {
+		return errors.New("window slope span must be positive, at least its minimum, at most 6 h")
 	}
 	return nil
 }
@@ -121,6 +135,7 @@ type part struct {
 	peak, res, el float64 // measured: peak, peak − plateau, plateau − PEEP
 	cstat, fitC   float64 // compliance measured and fitted (reliable breaths only)
 	fitRes, fitEl float64 // fitted: peak − PEEP − VT/C, VT/C
+	dp            float64
 }
 
 // Window keeps the last breaths and the baseline history in rings
@@ -166,7 +181,7 @@ func NewWindow(cfg WindowConfig) (*Window, error) {
 		w.ring[i] = make([]float64, 0, NumFields)
 	}
 	// at up to 60 breaths a minute over baseline and window
-	hcap := int((cfg.Baseline+cfg.Span)/60*60) + cfg.Breaths
+	hcap := int(max(cfg.Baseline+cfg.Span, cfg.SlopeSpan)/60*60) + cfg.Breaths
 	w.hist = make([]part, hcap)
 	w.scratch = make([]float64, 0, max(hcap, cfg.Breaths))
 	w.trend.stats = make([]Stat, NumFields)
@@ -214,8 +229,8 @@ func (w *Window) Trend() *Trend {
 	}
 	tr.done = 0 // the field statistics follow on demand, over w.idx
 	tr.NetFlow = w.netFlow(idx)
-	tr.CSlope = w.complianceSlope(idx)
-	tr.DPSlope = w.slope(idx, FieldIndex("dp"), false)
+	tr.CSlope = w.complianceSlope()
+	tr.DPSlope = w.slope(func(p *part) float64 { return p.dp })
 	tr.Rise = w.attribute(w.last, idx)
 	return tr
 }
@@ -275,48 +290,57 @@ func (w *Window) netFlow(idx []int) float64 {
 	return summarize(x).Median
 }
 
-// complianceSlope uses cstat when at least three breaths have one, else
-// the reliable breaths' fit_c.
-func (w *Window) complianceSlope(idx []int) float64 {
-	cs := FieldIndex("cstat")
+// complianceSlope uses cstat when at least three breaths of the slope's
+// span have one, else the reliable breaths' fit_c.
+func (w *Window) complianceSlope() float64 {
 	n := 0
-	for _, slot := range idx {
-		if !math.IsNaN(w.ring[slot][cs]) {
+	w.slopeParts(func(p *part) {
+		if !math.IsNaN(p.cstat) {
 			n++
 		}
-	}
+	})
 	if n >= 3 {
-		return w.slope(idx, cs, false)
+		return w.slope(func(p *part) float64 { return p.cstat })
 	}
-	return w.slope(idx, FieldIndex("fit_c"), true)
+	return w.slope(func(p *part) float64 { return p.fitC })
 }
 
-// slope is the least-squares slope of field f against start time, per hour.
-func (w *Window) slope(idx []int, f int, reliableOnly bool) float64 {
-	var st, sy, n float64
-	for _, slot := range idx {
-		v := w.ring[slot][f]
-		if math.IsNaN(v) || (reliableOnly && w.flags[slot]&(FlagFitUnreliable|FlagActiveEffort) != 0) {
-			continue
+// slopeParts calls f with each remembered breath of the slope's span.
+func (w *Window) slopeParts(f func(*part)) {
+	from := w.last - w.cfg.SlopeSpan
+	for k := w.hN; k >= 1; k-- {
+		if p := &w.hist[(w.hHead-k+len(w.hist))%len(w.hist)]; p.t >= from {
+			f(p)
 		}
-		st += w.ring[slot][0]
-		sy += v
-		n++
 	}
-	if n < 3 {
+}
+
+// slope is the least-squares slope per hour of a breath value (NaN: left
+// out) against the breath's start time, over the slope's span; NaN with
+// fewer than three values or when they span less than SlopeMin.
+func (w *Window) slope(value func(*part) float64) float64 {
+	var st, sy, n float64
+	first, last := math.Inf(1), math.Inf(-1)
+	w.slopeParts(func(p *part) {
+		if v := value(p); !math.IsNaN(v) {
+			st += p.t
+			sy += v
+			n++
+			first, last = min(first, p.t), max(last, p.t)
+		}
+	})
+	if n < 3 || last-first < w.cfg.SlopeMin {
 		return nan
 	}
 	mt, my := st/n, sy/n
 	var stt, sty float64
-	for _, slot := range idx {
-		v := w.ring[slot][f]
-		if math.IsNaN(v) || (reliableOnly && w.flags[slot]&(FlagFitUnreliable|FlagActiveEffort) != 0) {
-			continue
+	w.slopeParts(func(p *part) {
+		if v := value(p); !math.IsNaN(v) {
+			d := p.t - mt
+			stt += d * d
+			sty += d * (v - my)
 		}
-		d := w.ring[slot][0] - mt
-		stt += d * d
-		sty += d * (v - my)
-	}
+	})
 	if stt == 0 {
 		return nan
 	}
@@ -379,13 +403,13 @@ func (w *Window) windowParts(idx []int) []part {
 var (
 	iPeak, iPlat, iPEEP = FieldIndex("ppeak"), FieldIndex("pplat"), FieldIndex("peep")
 	iVTi, iFitC, iCstat = FieldIndex("vti"), FieldIndex("fit_c"), FieldIndex("cstat")
-	iVTe                = FieldIndex("vte")
+	iVTe, iDP           = FieldIndex("vte"), FieldIndex("dp")
 )
 
 // partOf derives a breath's parts from its stored values.
 func partOf(v []float64, f Flags) part {
 	p := part{t: v[0], peak: v[iPeak], res: v[iPeak] - v[iPlat], el: v[iPlat] - v[iPEEP], fitRes: nan, fitEl: nan,
-		cstat: v[iCstat], fitC: nan}
+		cstat: v[iCstat], fitC: nan, dp: v[iDP]}
 	if f&(FlagFitUnreliable|FlagActiveEffort) == 0 && v[iFitC] > 0 {
 		p.fitEl = v[iVTi] / v[iFitC]
 		p.fitRes = v[iPeak] - v[iPEEP] - p.fitEl

@@ -94,7 +94,7 @@ func TestBreathGolden(t *testing.T) {
 }
 
 func TestTrendGolden(t *testing.T) {
-	w, err := mechanics.NewWindow(mechanics.WindowConfig{})
+	w, err := mechanics.NewWindow(mechanics.WindowConfig{SlopeMin: 30}) // slopes over these 48 s
 	if err != nil {
 		t.Fatal(err)
 	}
