@@ -675,7 +675,7 @@ func (st Status) String() string {
 	if st.HasHealth && (st.Health.Outages > 0 || !st.Health.Connected) {
 		state := "connected"
 		if !st.Health.Connected {
-			state = "LOST"
+			state = "lost"
 		}
 		fmt.Fprintf(&b, "  port %s, lost %d×", state, st.Health.Outages)
 	}

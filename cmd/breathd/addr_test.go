@@ -132,7 +132,7 @@ func TestWatchCleansUntrustedText(t *testing.T) {
 	evil := "\x1b]0;owned\x07\x1b[2Jrule\nFAKE LINE\u202e\x9b31m"
 	p := clean(map[string]any{"rule": evil, "flags": []any{evil}, evil: 1.0}).(map[string]any)
 	line := watchLine(cleanText("bed\x1b[1m"), "event", p)
-	screen := renderWatch(map[string]*deviceView{cleanText("bed\x1b[1m"): {breath: p, active: []any{p}}})
+	screen := renderWatch(map[string]*deviceView{cleanText("bed\x1b[1m"): {breath: p, active: []any{p}}}, 80, 24)
 	for _, out := range []string{line, screen, fmt.Sprint(p)} {
 		for _, r := range out {
 			if r == 0x1b || r == 0x07 || r == 0x9b || r == '\u202e' {

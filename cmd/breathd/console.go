@@ -6,6 +6,7 @@ import (
 	"math"
 	"strings"
 	"sync"
+	"unicode/utf8"
 
 	"breathd/alerts"
 	"breathd/mechanics"
@@ -32,7 +33,10 @@ func num(v float64, width, dec int) string {
 	return fmt.Sprintf("%*.*f", width, dec, v)
 }
 
-const consoleHeader = "device        breath      t_s    rr   vti_mL  ppeak  pplat   peep     dp  cstat  fit_r  fit_c     mp  flags"
+// consoleHeader names the columns of a breath row: within 80 columns
+// before the flags; units in the README (pressures cmH2O, vti mL, cstat
+// and fit_c mL/cmH2O, fit_r cmH2O·s/L).
+const consoleHeader = "device     breath    rr vti mL  ppeak  pplat   peep     dp  cstat  fit_r  fit_c  flags"
 
 // Breath prints the breath's row.
 func (c *console) Breath(dev string, b *mechanics.Breath, w *mechanics.Window) {
@@ -42,31 +46,58 @@ func (c *console) Breath(dev string, b *mechanics.Breath, w *mechanics.Window) {
 		fmt.Fprintln(c.w, consoleHeader)
 	}
 	c.rows[dev]++
-	fmt.Fprintf(c.w, "%-12s %7d %8.1f %5s %8s %6s %6s %6s %6s %6s %6s %6s %6s  %s\n", dev, b.Seq, b.TStart,
-		num(b.RR, 5, 1), num(b.VTi, 8, 0), num(b.PPeak, 6, 1), num(b.PPlat, 6, 1), num(b.PEEP, 6, 1),
-		num(b.DP, 6, 1), num(b.Cstat, 6, 1), num(b.FitR, 6, 1), num(b.FitC, 6, 1), num(b.MP, 6, 1), b.Flags)
+	fmt.Fprintln(c.w, strings.TrimRight(fmt.Sprintf("%-10s %6d %5s %6s %6s %6s %6s %6s %6s %6s %6s  %s", dev, b.Seq,
+		num(b.RR, 5, 1), num(b.VTi, 6, 0), num(b.PPeak, 6, 1), num(b.PPlat, 6, 1), num(b.PEEP, 6, 1),
+		num(b.DP, 6, 1), num(b.Cstat, 6, 1), num(b.FitR, 6, 1), num(b.FitC, 6, 1), b.Flags), " "))
 	if c.rows[dev]%c.trendEvery == 0 {
 		fmt.Fprintln(c.w, trendLine(dev, w.Trend()))
 	}
 }
 
-// trendLine renders the rolling summary on one line.
+// trendLine renders the rolling summary, wrapped to 80 columns.
 func trendLine(dev string, tr *mechanics.Trend) string {
-	var b strings.Builder
-	fmt.Fprintf(&b, "%-12s trend: %d breaths over %.1f min", dev, tr.N, tr.Span/60)
+	parts := []string{fmt.Sprintf("%-10s trend: %d breaths over %.1f min;", dev, tr.N, tr.Span/60), "median [quartiles]"}
 	for _, f := range []string{"dp", "cstat", "fit_r", "ppeak"} {
 		if st, _ := tr.Stat(f); st.N > 0 {
-			fmt.Fprintf(&b, "  %s %.1f [%.1f–%.1f]", f, st.Median, st.Q1, st.Q3)
+			parts = append(parts, fmt.Sprintf("%s %.1f [%.1f–%.1f]", f, st.Median, st.Q1, st.Q3))
 		}
 	}
-	if !math.IsNaN(tr.CSlope) {
-		fmt.Fprintf(&b, "  compliance %+.1f/h", tr.CSlope)
-	}
-	if !math.IsNaN(tr.DPSlope) {
-		fmt.Fprintf(&b, "  dp %+.1f/h", tr.DPSlope)
+	if !math.IsNaN(tr.CSlope) || !math.IsNaN(tr.DPSlope) {
+		parts = append(parts, fmt.Sprintf("per hour: compliance %s, dp %s", signed(tr.CSlope), signed(tr.DPSlope)))
 	}
 	if r := tr.Rise; r.Cause != mechanics.RiseNone {
-		fmt.Fprintf(&b, "  peak pressure up %.1f cmH2O: %s (resistive %+.1f, elastic %+.1f, by %s)", r.PeakRise, r.Cause, r.ResistiveRise, r.ElasticRise, r.Method)
+		parts = append(parts, fmt.Sprintf("peak %+.1f cmH2O: %s (resistive %+.1f, elastic %+.1f, by %s)", r.PeakRise, r.Cause, r.ResistiveRise, r.ElasticRise, r.Method))
+	}
+	return wrap(parts, 80, strings.Repeat(" ", 11))
+}
+
+// signed writes v with its sign, "-" for none.
+func signed(v float64) string {
+	if math.IsNaN(v) {
+		return "-"
+	}
+	return fmt.Sprintf("%+.1f", v)
+}
+
+// wrap joins parts with two spaces into lines of at most width columns
+// (a part longer than that stands alone), the lines after the first
+// indented.
+func wrap(parts []string, width int, indent string) string {
+	var b strings.Builder
+	col := 0
+	for i, p := range parts {
+		n := utf8.RuneCountInString(p)
+		switch {
+		case i == 0:
+		case col+2+n > width:
+			b.WriteString("\n" + indent)
+			col = len(indent)
+		default:
+			b.WriteString("  ")
+			col += 2
+		}
+		b.WriteString(p)
+		col += n
 	}
 	return b.String()
 }
@@ -83,11 +114,15 @@ func eventLine(ev *alerts.Event) string {
 	switch {
 	case ev.Transition == alerts.Acknowledged:
 	case !math.IsNaN(ev.Low):
-		cond = fmt.Sprintf(": %s %.2f (band %g–%g)", ev.Field, ev.Value, ev.Low, ev.High)
+		cond = fmt.Sprintf(": %s %.2f, band %g–%g,", ev.Field, ev.Value, ev.Low, ev.High)
 	default:
-		cond = fmt.Sprintf(": %s %.2f (threshold %g)", ev.Field, ev.Value, ev.Threshold)
+		cond = fmt.Sprintf(": %s %.2f, threshold %g,", ev.Field, ev.Value, ev.Threshold)
 	}
-	return fmt.Sprintf("%-12s event %-12s %s [%s]%s at t %.1f s  id %s", ev.Device, ev.Transition, ev.Rule, ev.Level, cond, ev.T, ev.ID)
+	line := fmt.Sprintf("%s %s %s (%s)%s t %.1f s", ev.Device, ev.Transition, ev.Rule, ev.Level, cond, ev.T)
+	if ev.Latching && ev.Transition == alerts.Raised {
+		line += "\n" + strings.Repeat(" ", 11) + "acknowledge with event id " + ev.ID
+	}
+	return line
 }
 
 // eventLines writes events as JSON lines (analyze --events).

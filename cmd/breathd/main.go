@@ -140,7 +140,7 @@ func printFlags(w io.Writer, fs *flag.FlagSet) {
 			line += " " + name
 		}
 		fmt.Fprintf(w, "%s\n    \t%s", line, strings.ReplaceAll(usage, "\n", "\n    \t"))
-		if f.DefValue != "" && f.DefValue != "false" && f.DefValue != "0" {
+		if f.DefValue != "" && f.DefValue != "false" && f.DefValue != "0" && f.DefValue != "0s" && !strings.Contains(usage, "(default") {
 			fmt.Fprintf(w, " (default %s)", f.DefValue)
 		}
 		fmt.Fprintln(w)
