@@ -141,7 +141,7 @@ func (o *analyzeOptions) sinks(sum *summary, outs *outputs, stdout io.Writer) (s
 	}
 	var pd *plot.Data
 	if o.plot != "" {
-		pd = &plot.Data{}
+		pd = &plot.Data{Device: idFromPath(o.path), File: o.path}
 		sinks = append(sinks, pd)
 	}
 	return sinks, csv, pd, nil
@@ -265,7 +265,7 @@ func showProgress(file *device.File, stderr io.Writer) func() {
 }
 
 // summaryFields are the medians the summary prints.
-var summaryFields = []string{"rr", "vti", "ppeak", "pplat", "peep", "dp", "cstat", "fit_r", "fit_c", "mp"}
+var summaryFields = []string{"rr", "ie", "vti", "ppeak", "pplat", "peep", "dp", "cstat", "fit_r", "fit_c", "mp"}
 
 // reservoirSize bounds the values kept per field: medians are exact up to
 // this many breaths and from a uniform sample beyond, so memory does not
@@ -342,6 +342,10 @@ func (s *summary) print(w io.Writer, st stream.Status, took time.Duration) {
 		}
 		x := slices.Clone(s.res[i])
 		slices.Sort(x)
+		if f == "ie" {
+			fmt.Fprintf(w, " I:E %s", ieText(x[len(x)/2]))
+			continue
+		}
 		fmt.Fprintf(w, " %s %.1f", f, x[len(x)/2])
 	}
 	fmt.Fprintln(w)
@@ -390,7 +394,7 @@ func nothingDecoded(path string, st stream.Status) error {
 	if c.Lines == 0 {
 		return fmt.Errorf("%s: no sample decoded: the input is empty", path)
 	}
-	why := "check the delimiter and the columns (--delimiter, --columns, --unit; see breathd help)"
+	why := "check the delimiter and the columns (--delimiter, --columns, --unit; the README section Connect a ventilator lists the formats)"
 	switch {
 	case c.Bad[lines.CauseNotNumber]*2 > c.BadTotal():
 		why = "most lines have fields that are not numbers: is the delimiter or the decimal mark another? (--delimiter; a decimal comma needs ';' between fields)"

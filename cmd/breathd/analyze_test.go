@@ -155,8 +155,20 @@ func TestPlotDemo(t *testing.T) {
 	if code, _, errs := runCLI(t, "analyze", "--plot", svg, "testdata/demo.txt.gz"); code != 0 {
 		t.Fatal(errs)
 	}
-	if data, _ := os.ReadFile(svg); len(data) < 10000 || !strings.Contains(string(data), "<svg") {
+	data, _ := os.ReadFile(svg)
+	if len(data) < 10000 || !strings.Contains(string(data), "<svg") {
 		t.Errorf("svg of %d bytes", len(data))
+	}
+	// the title names the device, the file and the notice; each raised rule
+	// is named once, on the panel of its field
+	text := string(data)
+	for _, want := range []string{"device demo", "demo.txt.gz", "not a medical device", ">driving_pressure_high (warning)<", ">peak_plateau_gap_high (warning)<"} {
+		if n := strings.Count(text, want); n != 1 {
+			t.Errorf("%q %d times in the picture, want once", want, n)
+		}
+	}
+	if code, _, errs := runCLI(t, "analyze", "--plot", filepath.Join(dir, "late.png"), "--plot-from", "5000", "testdata/demo.txt.gz"); code != 1 || !strings.Contains(errs, "no samples in the strip's range 5000–5030 s: the breaths run from 4 to 1496 s") {
+		t.Errorf("a range past the end: exit %d %s", code, errs)
 	}
 	if code, _, errs := runCLI(t, "analyze", "--plot", filepath.Join(dir, "x.gif"), "testdata/demo.txt.gz"); code != 2 || !strings.Contains(errs, ".png or .svg") {
 		t.Errorf("gif: exit %d %s", code, errs)

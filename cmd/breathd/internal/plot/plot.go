@@ -12,7 +12,10 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
+	"strconv"
 	"strings"
+	"time"
 
 	"breathd/alerts"
 	"breathd/device"
@@ -20,6 +23,7 @@ import (
 	"breathd/stream/lines"
 
 	gonum "gonum.org/v1/plot"
+	"gonum.org/v1/plot/font"
 	"gonum.org/v1/plot/plotter"
 	"gonum.org/v1/plot/vg"
 	"gonum.org/v1/plot/vg/draw"
@@ -27,25 +31,26 @@ import (
 	"gonum.org/v1/plot/vg/vgsvg"
 )
 
-// Our colours: muted, told apart by lightness as well as hue.
+// Our colours: muted, told apart by lightness as well as hue. Rule marks
+// are one neutral grey whatever their level (the level is in words): a
+// colour per level would read as an alarm system's priorities.
 var (
 	colPressure = color.RGBA{R: 0x1f, G: 0x4e, B: 0x79, A: 0xff} // deep blue
 	colFlow     = color.RGBA{R: 0x2e, G: 0x7d, B: 0x32, A: 0xff} // green
 	colVolume   = color.RGBA{R: 0x6a, G: 0x4c, B: 0x93, A: 0xff} // violet
 	colMark     = color.RGBA{R: 0xc0, G: 0x6c, B: 0x00, A: 0xff} // amber
+	colPeak     = color.RGBA{R: 0x9c, G: 0x27, B: 0x27, A: 0xff} // brick
 	colGrid     = color.RGBA{R: 0xdd, G: 0xdd, B: 0xdd, A: 0xff}
-	colLevel    = map[alerts.Level]color.Color{
-		alerts.LevelNotice:  color.RGBA{R: 0x88, G: 0x88, B: 0x88, A: 0xff},
-		alerts.LevelWarning: color.RGBA{R: 0xd0, G: 0x8c, B: 0x00, A: 0xff},
-		alerts.LevelUrgent:  color.RGBA{R: 0xb0, G: 0x1e, B: 0x1e, A: 0xff},
-	}
+	colRule     = color.RGBA{R: 0x55, G: 0x55, B: 0x55, A: 0xff}
 )
 
 // Data collects what the picture needs while the recording is analysed:
-// it is a sink of the device loop.
+// it is a sink of the device loop. Device and File name the recording in
+// the picture's title.
 type Data struct {
-	breaths []mechanics.Breath
-	events  []alerts.Event
+	Device, File string
+	breaths      []mechanics.Breath
+	events       []alerts.Event
 }
 
 // Breath keeps a copy of the breath.
@@ -156,10 +161,52 @@ func newPanel(title, ylabel string) *gonum.Plot {
 	p.Y.Tick.Label.Font.Size = vg.Points(7)
 	p.Y.Label.TextStyle.Font.Size = vg.Points(8)
 	p.X.Label.TextStyle.Font.Size = vg.Points(8)
+	p.X.Tick.Marker, p.Y.Tick.Marker = roundTicks{}, roundTicks{}
 	g := plotter.NewGrid()
 	g.Horizontal.Color, g.Vertical.Color = colGrid, colGrid
 	p.Add(g)
 	return p
+}
+
+// roundTicks marks round values (1, 2 or 5 times a power of ten) and
+// writes them with no more decimals than the step needs: 2.5, not 2.50.
+type roundTicks struct{}
+
+func (roundTicks) Ticks(lo, hi float64) []gonum.Tick {
+	if !(hi > lo) || math.IsInf(hi-lo, 0) {
+		return nil
+	}
+	raw := (hi - lo) / 6
+	mag := math.Pow(10, math.Floor(math.Log10(raw)))
+	step := mag
+	for _, m := range []float64{2, 5, 10} {
+		if raw > step {
+			step = m * mag
+		}
+	}
+	dec := max(0, -int(math.Floor(math.Log10(step)+1e-9)))
+	var ticks []gonum.Tick
+	for v := math.Ceil(lo/step) * step; v <= hi+step*1e-9; v += step {
+		x := math.Round(v/step) * step
+		if x == 0 {
+			x = 0 // not -0
+		}
+		ticks = append(ticks, gonum.Tick{Value: x, Label: strconv.FormatFloat(x, 'f', dec, 64)})
+		if m := x + step/2; m < hi {
+			ticks = append(ticks, gonum.Tick{Value: m})
+		}
+	}
+	return ticks
+}
+
+// minSpan widens the panel's y-range to at least span around its data, so
+// that noise on a steady value looks like noise, not like a swing.
+func minSpan(p *gonum.Plot, span float64) {
+	if p.Y.Min > p.Y.Max || p.Y.Max-p.Y.Min >= span {
+		return
+	}
+	mid := (p.Y.Min + p.Y.Max) / 2
+	p.Y.Min, p.Y.Max = mid-span/2, mid+span/2
 }
 
 func addLine(p *gonum.Plot, pts plotter.XYs, c color.Color, width vg.Length) {
@@ -171,19 +218,22 @@ func addLine(p *gonum.Plot, pts plotter.XYs, c color.Color, width vg.Length) {
 	p.Add(l)
 }
 
-func addMarks(p *gonum.Plot, pts plotter.XYs, c color.Color, shape draw.GlyphDrawer, label string) {
-	if len(pts) == 0 {
-		return
+func addMarks(p *gonum.Plot, pts plotter.XYs, c color.Color, shape draw.GlyphDrawer, radius vg.Length, label string) {
+	s, _ := plotter.NewScatter(append(plotter.XYs{}, pts...))
+	s.GlyphStyle.Color, s.GlyphStyle.Shape, s.GlyphStyle.Radius = c, shape, radius
+	if len(pts) > 0 {
+		p.Add(s)
 	}
-	s, _ := plotter.NewScatter(pts)
-	s.GlyphStyle.Color, s.GlyphStyle.Shape, s.GlyphStyle.Radius = c, shape, vg.Points(2.2)
-	p.Add(s)
 	p.Legend.Add(label, s)
 }
 
+// ErrEmptyRange is returned when the strip's range holds no sample.
+var ErrEmptyRange = errors.New("no samples in the strip's range")
+
 // Write draws the strip [from, from+span) of the recording at path
-// (decoded with f) above the trend panels, and writes out, a PNG or SVG by
-// its extension.
+// (decoded with f) above the trend panels, under a title naming the
+// device, the file, its wall-clock start and the advisory notice, and
+// writes out, a PNG or SVG by its extension.
 func Write(out, path string, f lines.Format, from, span float64, d *Data) error {
 	if err := Check(out, span); err != nil {
 		return err
@@ -192,12 +242,38 @@ func Write(out, path string, f lines.Format, from, span float64, d *Data) error 
 	if err != nil {
 		return err
 	}
+	if len(st.t) == 0 {
+		if n := len(d.breaths); n > 0 {
+			return fmt.Errorf("%w %.0f–%.0f s: the breaths run from %.0f to %.0f s (--plot-from)", ErrEmptyRange, from, from+span, d.breaths[0].TStart, d.breaths[n-1].TEnd)
+		}
+		return fmt.Errorf("%w %.0f–%.0f s (--plot-from)", ErrEmptyRange, from, from+span)
+	}
 	rows := append(stripPanels(st, from, span, d.breaths), trendPanels(d)...)
-	return render(out, rows)
+	return render(out, d.title(), rows)
 }
 
-// stripPanels are pressure (with each breath's start, peak, plateau and
-// PEEP marked), flow and volume over the strip.
+// title is the picture's heading: what, from where, when, and the notice.
+func (d *Data) title() [2]string {
+	what := "breathd analyze"
+	if d.Device != "" {
+		what += " · device " + d.Device
+	}
+	if d.File != "" {
+		what += " · " + filepath.Base(d.File)
+	}
+	for _, b := range d.breaths {
+		if !b.At.IsZero() {
+			start := b.At.Add(-time.Duration(b.TStart * float64(time.Second))).UTC()
+			return [2]string{what + " · started " + start.Format("2006-01-02 15:04:05") + " UTC", advisory}
+		}
+	}
+	return [2]string{what + " · no wall-clock time in the recording", advisory}
+}
+
+const advisory = "Advisory research output, not a medical device and not for clinical decisions; local regulations and licensed clinicians decide its use."
+
+// stripPanels are pressure (with each breath's peak, plateau and PEEP
+// marked), flow (with each breath's start) and volume over the strip.
 func stripPanels(st *strip, from, span float64, breaths []mechanics.Breath) []*gonum.Plot {
 	pres := newPanel(fmt.Sprintf("Airway pressure, %.0f–%.0f s", from, from+span), "cmH2O")
 	flow := newPanel("Flow (into the patient > 0)", "L/min")
@@ -210,72 +286,113 @@ func stripPanels(st *strip, from, span float64, breaths []mechanics.Breath) []*g
 		if b.TStart < from || b.TStart >= from+span {
 			continue
 		}
-		starts = append(starts, plotter.XY{X: b.TStart, Y: b.PEEP})
+		starts = append(starts, plotter.XY{X: b.TStart, Y: 0})
 		peaks = append(peaks, plotter.XY{X: st.peakTime(b.TStart, b.TStart+b.Ti), Y: b.PPeak})
 		if !math.IsNaN(b.PPlat) {
 			plats = append(plats, plotter.XY{X: b.TStart + b.Ti - 0.05, Y: b.PPlat})
 		}
-		if b.TEnd < from+span {
+		if b.TEnd < from+span && !math.IsNaN(b.PEEP) { // PEEP: the last 0.2 s of expiration
 			peeps = append(peeps, plotter.XY{X: b.TEnd - 0.1, Y: b.PEEP})
 		}
 	}
 	for _, p := range []*gonum.Plot{pres, flow, vol} {
 		p.X.Min, p.X.Max = from, from+span
 	}
-	addMarks(pres, starts, colMark, draw.TriangleGlyph{}, "start")
-	addMarks(pres, peaks, colLevel[alerts.LevelUrgent], draw.CircleGlyph{}, "peak")
-	addMarks(pres, plats, colFlow, draw.BoxGlyph{}, "plateau")
-	addMarks(pres, peeps, colVolume, draw.CrossGlyph{}, "PEEP")
-	pres.Legend.Top, pres.Legend.TextStyle.Font.Size = true, vg.Points(7)
-	vol.X.Label.Text = "s"
+	addMarks(pres, peaks, colPeak, draw.CircleGlyph{}, vg.Points(2.2), "peak")
+	addMarks(pres, plats, colFlow, draw.BoxGlyph{}, vg.Points(2.2), "plateau")
+	addMarks(pres, peeps, colVolume, draw.PlusGlyph{}, vg.Points(3.5), "PEEP")
+	addMarks(flow, starts, colMark, draw.TriangleGlyph{}, vg.Points(2.6), "breath start")
+	minSpan(pres, 10)
+	minSpan(flow, 20)
+	minSpan(vol, 100)
+	// the keys sit to the right of the panel, outside the data: headroom
+	// above the highest value holds them
+	for p, room := range map[*gonum.Plot]float64{pres: 0.6, flow: 0.3} {
+		p.Legend.Top, p.Legend.TextStyle.Font.Size = true, vg.Points(7)
+		p.Y.Max += (p.Y.Max - p.Y.Min) * room
+	}
+	vol.X.Label.Text = "s of recording"
 	return []*gonum.Plot{pres, flow, vol}
 }
 
-// trendPanels are compliance (static, and fitted where reliable),
-// resistance, driving pressure and mechanical power over the whole
-// recording, with each raised rule marked.
-func trendPanels(d *Data) []*gonum.Plot {
-	trend := func(title, unit string, get func(b *mechanics.Breath) float64) *gonum.Plot {
-		p := newPanel(title, unit)
-		x := make([]float64, len(d.breaths))
-		y := make([]float64, len(d.breaths))
-		for i := range d.breaths {
-			x[i], y[i] = d.breaths[i].TStart/60, get(&d.breaths[i])
-		}
-		addLine(p, xys(x, y), colPressure, vg.Points(0.8))
-		return p
-	}
-	comp := trend("Compliance: static (line) and fitted (dots)", "mL/cmH2O", func(b *mechanics.Breath) float64 { return b.Cstat })
-	fitC := make(plotter.XYs, 0)
-	for _, b := range d.breaths {
-		if !math.IsNaN(b.FitC) && b.Reliable() {
-			fitC = append(fitC, plotter.XY{X: b.TStart / 60, Y: b.FitC})
-		}
-	}
-	if len(fitC) > 0 {
-		s, _ := plotter.NewScatter(fitC)
-		s.GlyphStyle.Color, s.GlyphStyle.Shape, s.GlyphStyle.Radius = colFlow, draw.CircleGlyph{}, vg.Points(0.9)
-		comp.Add(s)
-	}
-	res := trend("Resistance: fitted", "cmH2O·s/L", func(b *mechanics.Breath) float64 {
+// trend is one trend panel: its field, and the rule fields drawn on it.
+type trendPanel struct {
+	title, unit string
+	span        float64 // the least y-range shown
+	get         func(b *mechanics.Breath) float64
+	rules       []string // event fields marked on this panel
+}
+
+var trendPanelsDrawn = []trendPanel{
+	{"Compliance: static (line) and fitted (dots)", "mL/cmH2O", 10, func(b *mechanics.Breath) float64 { return b.Cstat },
+		[]string{"cstat", "fit_c", "cdyn", "median.cstat", "median.fit_c", "slope.compliance", "compliance_change"}},
+	{"Resistance: fitted", "cmH2O·s/L", 5, func(b *mechanics.Breath) float64 {
 		if b.Reliable() {
 			return b.FitR
 		}
 		return math.NaN()
-	})
-	dp := trend("Driving pressure", "cmH2O", func(b *mechanics.Breath) float64 { return b.DP })
-	mp := trend("Mechanical power", "J/min", func(b *mechanics.Breath) float64 { return b.MP })
-	mp.X.Label.Text = "minutes of recording; vertical marks: rule raised (colour by level)"
-	rows := []*gonum.Plot{comp, res, dp, mp}
-	for _, p := range rows {
-		markEvents(p, d.events)
+	}, []string{"fit_r", "rinsp", "median.fit_r", "peak_plateau_gap", "rise.resistive"}},
+	{"Driving pressure", "cmH2O", 5, func(b *mechanics.Breath) float64 { return b.DP },
+		[]string{"dp", "median.dp", "slope.dp", "rise.elastic", "pplat", "median.pplat"}},
+	{"Mechanical power", "J/min", 5, func(b *mechanics.Breath) float64 { return b.MP }, []string{"mp", "median.mp"}},
+}
+
+// trendPanels are compliance (static, and fitted where reliable),
+// resistance, driving pressure and mechanical power over the whole
+// recording, each with the rules on its field marked and named, and a lane
+// for the rules on other fields. Past two hours the axis is in hours.
+func trendPanels(d *Data) []*gonum.Plot {
+	scale, unit := 60.0, "minutes"
+	if n := len(d.breaths); n > 0 && d.breaths[n-1].TEnd > 2*3600 {
+		scale, unit = 3600, "hours"
+	}
+	var rows []*gonum.Plot
+	onPanel := map[string]bool{}
+	for k, tp := range trendPanelsDrawn {
+		p := newPanel(tp.title, tp.unit)
+		x := make([]float64, len(d.breaths))
+		y := make([]float64, len(d.breaths))
+		for i := range d.breaths {
+			x[i], y[i] = d.breaths[i].TStart/scale, tp.get(&d.breaths[i])
+		}
+		addLine(p, xys(x, y), colPressure, vg.Points(0.8))
+		if k == 0 {
+			fitC := make(plotter.XYs, 0)
+			for _, b := range d.breaths {
+				if !math.IsNaN(b.FitC) && b.Reliable() {
+					fitC = append(fitC, plotter.XY{X: b.TStart / scale, Y: b.FitC})
+				}
+			}
+			if len(fitC) > 0 {
+				s, _ := plotter.NewScatter(fitC)
+				s.GlyphStyle.Color, s.GlyphStyle.Shape, s.GlyphStyle.Radius = colFlow, draw.CircleGlyph{}, vg.Points(0.9)
+				p.Add(s)
+			}
+		}
+		minSpan(p, tp.span)
+		for _, f := range tp.rules {
+			onPanel[f] = true
+		}
+		markEvents(p, d.events, scale, func(field string) bool { return slices.Contains(tp.rules, field) })
+		rows = append(rows, p)
+	}
+	if lane := ruleLane(d.events, scale, func(field string) bool { return !onPanel[field] }); lane != nil {
+		lane.X.Min, lane.X.Max = rows[0].X.Min, rows[0].X.Max
+		rows = append(rows, lane)
+	}
+	last := rows[len(rows)-1]
+	last.X.Label.Text = unit + " of recording; dashed: a rule raised, with its name and level"
+	if len(rows) == len(trendPanelsDrawn) {
+		last.X.Label.Text = unit + " of recording; dashed: a rule raised, with its name and level; no rule on other fields was raised"
 	}
 	return rows
 }
 
-// render lays the panels out in one column and writes the picture.
-func render(out string, rows []*gonum.Plot) error {
-	const width, height = 7.5 * vg.Inch, 12 * vg.Inch
+// render lays out the title and the panels in one column and writes the
+// picture.
+func render(out string, title [2]string, rows []*gonum.Plot) error {
+	const width = 7.5 * vg.Inch
+	height := vg.Length(1.05+1.55*float64(len(rows))) * vg.Inch
 	var canvas vg.CanvasWriterTo
 	if strings.ToLower(filepath.Ext(out)) == ".svg" {
 		canvas = vgsvg.New(width, height)
@@ -283,12 +400,18 @@ func render(out string, rows []*gonum.Plot) error {
 		canvas = vgimg.PngCanvas{Canvas: vgimg.NewWith(vgimg.UseWH(width, height), vgimg.UseDPI(90))}
 	}
 	dc := draw.New(canvas)
+	head := func(size vg.Length, y vg.Length, txt string) {
+		sty := draw.TextStyle{Color: color.Black, Font: font.From(gonum.DefaultFont, size), Handler: gonum.DefaultTextHandler, XAlign: draw.XCenter, YAlign: draw.YTop}
+		dc.FillText(sty, vg.Point{X: width / 2, Y: y}, txt)
+	}
+	head(vg.Points(11), height-3*vg.Millimeter, title[0])
+	head(vg.Points(8), height-9*vg.Millimeter, title[1])
 	grid := make([][]*gonum.Plot, len(rows))
 	for i, p := range rows {
 		grid[i] = []*gonum.Plot{p}
 	}
 	tiles := draw.Tiles{Rows: len(rows), Cols: 1, PadX: vg.Millimeter, PadY: 3 * vg.Millimeter,
-		PadTop: 4 * vg.Millimeter, PadBottom: 2 * vg.Millimeter, PadLeft: 2 * vg.Millimeter, PadRight: 4 * vg.Millimeter}
+		PadTop: 15 * vg.Millimeter, PadBottom: 2 * vg.Millimeter, PadLeft: 2 * vg.Millimeter, PadRight: 4 * vg.Millimeter}
 	for i, c := range gonum.Align(grid, tiles, dc) {
 		rows[i].Draw(c[0])
 	}
@@ -303,20 +426,96 @@ func render(out string, rows []*gonum.Plot) error {
 	return file.Close()
 }
 
-// markEvents draws a vertical mark at each raised event, coloured by its
-// level, across the panel's data range.
-func markEvents(p *gonum.Plot, events []alerts.Event) {
+// markEvents draws a dashed vertical mark at each raised event whose field
+// the panel shows, named with its rule and level at the top of the panel.
+func markEvents(p *gonum.Plot, events []alerts.Event, scale float64, shows func(field string) bool) {
 	lo, hi := p.Y.Min, p.Y.Max
 	if lo >= hi {
 		return
 	}
+	var at plotter.XYs
+	var names []string
 	for _, ev := range events {
-		if ev.Transition != alerts.Raised {
+		if ev.Transition != alerts.Raised || !shows(ev.Field) {
 			continue
 		}
-		x := ev.T / 60
-		l, _ := plotter.NewLine(plotter.XYs{{X: x, Y: lo}, {X: x, Y: hi}})
-		l.Color, l.Width, l.Dashes = colLevel[ev.Level], vg.Points(0.8), []vg.Length{vg.Points(2), vg.Points(2)}
+		x := ev.T / scale
+		l, _ := plotter.NewLine(plotter.XYs{{X: x, Y: lo}, {X: x, Y: hi + (hi-lo)*0.45}})
+		l.Color, l.Width, l.Dashes = colRule, vg.Points(0.8), []vg.Length{vg.Points(2), vg.Points(2)}
+		p.Add(l)
+		at = append(at, plotter.XY{X: x})
+		names = append(names, fmt.Sprintf("%s (%s)", ev.Rule, ev.Level))
+	}
+	if len(at) == 0 {
+		return
+	}
+	// room above the data for the names
+	p.Y.Max = hi + (hi-lo)*0.45
+	for i := range at {
+		at[i].Y = p.Y.Max - (p.Y.Max-lo)*(0.02+0.1*float64(i%3))
+	}
+	labels, _ := plotter.NewLabels(plotter.XYLabels{XYs: at, Labels: names})
+	labels.Offset = vg.Point{X: vg.Points(2)}
+	for i := range labels.TextStyle {
+		labels.TextStyle[i].Font.Size = vg.Points(6.5)
+		labels.TextStyle[i].Color = colRule
+		labels.TextStyle[i].YAlign = draw.YTop
+	}
+	p.Add(labels)
+}
+
+// ruleLane is a panel of the rules whose fields no trend panel shows: one
+// row per rule, a bar from each raising to its clearing (or the end).
+func ruleLane(events []alerts.Event, scale float64, shows func(field string) bool) *gonum.Plot {
+	var order []string
+	row := map[string]int{}
+	for _, ev := range events {
+		if shows(ev.Field) {
+			if _, ok := row[ev.Rule]; !ok {
+				row[ev.Rule] = len(order)
+				order = append(order, ev.Rule)
+			}
+		}
+	}
+	if len(order) == 0 {
+		return nil
+	}
+	p := newPanel("Rules on other fields: raised (bar) until cleared", "")
+	p.Y.Min, p.Y.Max = -0.8, float64(len(order))-0.2
+	p.Y.Tick.Marker = gonum.TickerFunc(func(lo, hi float64) []gonum.Tick {
+		ticks := make([]gonum.Tick, len(order))
+		for i, r := range order {
+			ticks[i] = gonum.Tick{Value: float64(i), Label: r}
+		}
+		return ticks
+	})
+	end := 0.0
+	for _, ev := range events {
+		end = max(end, ev.T)
+	}
+	open := map[string]float64{}
+	bar := func(rule string, a, b float64) {
+		y := float64(row[rule])
+		l, _ := plotter.NewLine(plotter.XYs{{X: a / scale, Y: y}, {X: b / scale, Y: y}})
+		l.Color, l.Width = colRule, vg.Points(4)
 		p.Add(l)
 	}
+	for _, ev := range events {
+		if !shows(ev.Field) {
+			continue
+		}
+		switch ev.Transition {
+		case alerts.Raised:
+			open[ev.Rule] = ev.T
+		case alerts.Cleared:
+			if a, ok := open[ev.Rule]; ok {
+				bar(ev.Rule, a, max(ev.T, a+scale/60))
+				delete(open, ev.Rule)
+			}
+		}
+	}
+	for r, a := range open {
+		bar(r, a, max(end, a+scale/60))
+	}
+	return p
 }
