@@ -201,15 +201,15 @@ func (e *Engine) Tick(tech Tech, t float64, wall time.Time) []Event {
 
 func techValue(field string, t *Tech) float64 {
 	switch field {
-	case "since_sample":
+	case "no_samples":
 		return t.SinceSample
-	case "since_breath":
+	case "no_breaths":
 		return t.SinceBreath
 	case "circuit_open":
 		return t.CircuitOpen
-	case "bad_per_min":
+	case "bad_lines":
 		return t.BadPerMin
-	case "rate_error":
+	case "sample_rate_off":
 		return t.RateError
 	case "port_lost":
 		return t.PortLost

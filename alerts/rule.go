@@ -41,8 +41,8 @@ const (
 // mechanics.Fields(), a derived one (peak_plateau_gap), a rolling one
 // (median.<field>, iqr.<field>, slope.compliance, slope.dp,
 // compliance_change, rise.peak, rise.resistive, rise.elastic) or a
-// technical one (since_sample, since_breath, circuit_open, bad_per_min,
-// rate_error, port_lost).
+// technical one (no_samples, no_breaths, circuit_open, bad_lines,
+// sample_rate_off, port_lost, format_suspect).
 type Rule struct {
 	ID         string     `yaml:"id"`
 	Field      string     `yaml:"field"`
@@ -68,8 +68,8 @@ type Rule struct {
 var validRuleID = regexp.MustCompile(`^[a-z0-9_]{1,48}$`)
 
 // technical fields are evaluated on ticks, not breaths.
-var technical = map[string]bool{"since_sample": true, "since_breath": true, "circuit_open": true, "format_suspect": true,
-	"bad_per_min": true, "rate_error": true, "port_lost": true}
+var technical = map[string]bool{"no_samples": true, "no_breaths": true, "circuit_open": true, "format_suspect": true,
+	"bad_lines": true, "sample_rate_off": true, "port_lost": true}
 
 // Validate reports the first unusable setting.
 func (r *Rule) Validate() error {
@@ -130,8 +130,14 @@ func fieldKind(name string) (int, error) {
 	if stat, f, ok := strings.Cut(name, "."); ok && (stat == "median" || stat == "iqr") && mechanics.FieldIndex(f) >= 0 {
 		return kindRolling, nil
 	}
+	if now, ok := renamed[name]; ok {
+		return 0, fmt.Errorf("field %q is now called %q (the name of its default rule, since payload version 2)", name, now)
+	}
 	return 0, fmt.Errorf("unknown field %q", name)
 }
+
+// renamed are the technical fields' names before payload version 2.
+var renamed = map[string]string{"since_sample": "no_samples", "since_breath": "no_breaths", "bad_per_min": "bad_lines", "rate_error": "sample_rate_off"}
 
 // Override changes a rule by id, or adds one with a new id. Every field
 // that is set (present in the configuration, so 0 and false count)

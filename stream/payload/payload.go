@@ -18,7 +18,7 @@ import (
 )
 
 // Version is the "v" of every JSON payload.
-const Version = 1
+const Version = 2
 
 // num is a number that encodes NaN and ±Inf as null.
 type num float64

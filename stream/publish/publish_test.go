@@ -23,6 +23,7 @@ import (
 	"breathd/mechanics/lungsim"
 	"breathd/stream"
 	"breathd/stream/broker"
+	"breathd/stream/payload"
 
 	mqtt "github.com/eclipse/paho.mqtt.golang"
 	"github.com/rs/zerolog"
@@ -144,7 +145,7 @@ func TestPublishToEmbeddedBroker(t *testing.T) {
 	var breath map[string]any
 	json.Unmarshal(sub.last("breathd/bed9/breath").Payload(), &breath)
 	// a stream without a clock, read as fast as possible: no wall-clock time
-	if at, ok := breath["at"]; breath["v"] != 1.0 || breath["pplat"] == nil || breath["seq"] != float64(st.Breaths) || !ok || at != nil {
+	if at, ok := breath["at"]; breath["v"] != float64(payload.Version) || breath["pplat"] == nil || breath["seq"] != float64(st.Breaths) || !ok || at != nil {
 		t.Errorf("breath payload %v", breath)
 	}
 	var ev map[string]any
