@@ -53,8 +53,9 @@
 //	0.00;5.1;0.0
 //	0.01;5.9;42.5
 //
-//	time_ms  paw   flow      (columns t,paw,flow with --unit t=ms; "time_ms" is not a known name,
-//	0        5.1   0.0        so this line is still a header but names no t column: pass --columns)
+//	Time [s];Paw [mbar];Flow [L/s]     (units from the header; decimal commas
+//	0,00;5,0;0,00                       beside a semicolon)
+//	0,01;5,8;0,71
 //
 // # Bad lines and gaps
 //
