@@ -15,7 +15,9 @@ import (
 	"breathd/mechanics"
 	"breathd/stream"
 	"breathd/stream/lines"
+	"breathd/stream/payload"
 	"breathd/stream/publish"
+	"breathd/stream/web"
 
 	"github.com/rs/zerolog"
 )
@@ -44,6 +46,7 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	pf.register(fs)
 	var mf mqttFlags
 	mf.register(fs)
+	httpListen := fs.String("http", "", "serve /metrics and /healthz on this address, e.g. 127.0.0.1:9464 (default: off)")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -108,8 +111,14 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		src.Close()
 		return err
 	}
+	ws, err := startHTTP(config.HTTP{Listen: *httpListen}, log)
+	if err != nil {
+		sess.close()
+		src.Close()
+		return err
+	}
 	return runDevices(ctx, []deviceRun{{id: dev, src: src, format: f, mechanics: mcfg, rules: alerts.Defaults(),
-		live: sp > 0 || path == "-", recording: path}}, *every, stdout, log, sess)
+		live: sp > 0 || path == "-", recording: path}}, *every, stdout, log, sess, ws)
 }
 
 func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -119,6 +128,7 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 	every := fs.Duration("report-every", 0, "how often to print the counters, overriding report_every (default 5s)")
 	var mf mqttFlags
 	mf.register(fs)
+	httpListen := fs.String("http", "", "serve /metrics and /healthz on this address, overriding http.listen")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -174,9 +184,18 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 		closeAll()
 		return err
 	}
+	if *httpListen != "" {
+		cfg.HTTP.Listen = *httpListen
+	}
+	ws, err := startHTTP(cfg.HTTP, log)
+	if err != nil {
+		sess.close()
+		closeAll()
+		return err
+	}
 	stopNotify := notifySystemd(log)
 	defer stopNotify()
-	return runDevices(ctx, runs, cfg.ReportEvery, stdout, log, sess)
+	return runDevices(ctx, runs, cfg.ReportEvery, stdout, log, sess, ws)
 }
 
 // openSource opens a device's byte source, wrapped in a recorder when the
@@ -225,8 +244,11 @@ func openSource(d *config.Device, log zerolog.Logger) (io.ReadCloser, error) {
 // is done, printing their breaths, events and counters, and publishing
 // them when sess is set. A device that fails is logged and does not stop
 // the others.
-func runDevices(ctx context.Context, runs []deviceRun, every time.Duration, stdout io.Writer, log zerolog.Logger, sess *mqttSession) error {
+func runDevices(ctx context.Context, runs []deviceRun, every time.Duration, stdout io.Writer, log zerolog.Logger, sess *mqttSession, ws *web.Server) error {
 	defer sess.close()
+	if ws != nil {
+		defer ws.Close()
+	}
 	con := newConsole(stdout)
 	report := func(st stream.Status) {
 		con.mu.Lock()
@@ -249,6 +271,14 @@ func runDevices(ctx context.Context, runs []deviceRun, every time.Duration, stdo
 					return
 				}
 				sinks = append(sinks, pub)
+			}
+			if ws != nil {
+				wd := &web.Device{ID: r.id, Status: ctl.Status, Events: &web.EventCounts{}}
+				if pub != nil {
+					wd.Publisher = func() (payload.Counters, bool) { return pub.Counters(), pub.Connected() }
+				}
+				sinks = append(sinks, wd.Events)
+				ws.Add(wd)
 			}
 			st, err := stream.Run(ctx, r.src, stream.Config{Device: r.id, Format: r.format, Mechanics: r.mechanics,
 				Rules: r.rules, Live: r.live, Every: every, Report: report, Log: dlog, Sink: sinks, Control: ctl})
@@ -345,4 +375,12 @@ func cmdPorts(args []string, stdout, stderr io.Writer) error {
 		}
 	}
 	return nil
+}
+
+// startHTTP starts the operations listener when one is configured.
+func startHTTP(c config.HTTP, log zerolog.Logger) (*web.Server, error) {
+	if c.Listen == "" {
+		return nil, nil
+	}
+	return web.Start(web.Config{Listen: c.Listen, PasswordFile: c.PasswordFile, CertFile: c.CertFile, KeyFile: c.KeyFile}, log)
 }

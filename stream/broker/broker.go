@@ -199,6 +199,21 @@ func loopbackAddr(addr string) string {
 	return net.JoinHostPort(host, port)
 }
 
+// Users are the entries of a password file, for other listeners of
+// breathd's (the HTTP one) that take the same file.
+type Users map[string]user
+
+// ReadUsers reads a password file ("user:password" and "ack
+// user:password" lines).
+func ReadUsers(path string) (Users, error) { return readPasswordFile(path) }
+
+// Check reports whether name and password match an entry, in constant time
+// over the password.
+func (u Users) Check(name, password string) bool {
+	e, ok := u[name]
+	return ok && subtle.ConstantTimeCompare([]byte(password), e.password) == 1
+}
+
 // user is an entry of the password file.
 type user struct {
 	password []byte

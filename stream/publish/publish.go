@@ -529,6 +529,9 @@ out:
 	return err
 }
 
+// Connected reports whether the publisher is connected to its broker now.
+func (p *Publisher) Connected() bool { return p.client.IsConnectionOpen() }
+
 // Counters returns the publisher's counts now.
 func (p *Publisher) Counters() payload.Counters {
 	unq, lastErr := p.sp.counts()

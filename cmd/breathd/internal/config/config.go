@@ -29,6 +29,7 @@ type Config struct {
 	StateDir    string        `yaml:"state_dir"` // durable event queues; default: in memory only
 	MQTT        MQTT          `yaml:"mqtt"`
 	Embedded    Embedded      `yaml:"embedded_broker"`
+	HTTP        HTTP          `yaml:"http"`
 	Devices     []Device      `yaml:"devices"`
 
 	yamlFile `yaml:"-"`
@@ -268,6 +269,15 @@ type Embedded struct {
 	KeyFile      string `yaml:"key_file"`      // its key (PEM)
 	NoAnonymous  bool   `yaml:"no_anonymous"`  // refuse clients without a user name (by default they may read)
 	MaxClients   int64  `yaml:"max_clients"`   // default 64
+}
+
+// HTTP is the operations listener (/metrics, /healthz): off unless Listen
+// is set; loopback only unless PasswordFile, CertFile and KeyFile are set.
+type HTTP struct {
+	Listen       string `yaml:"listen"`        // e.g. 127.0.0.1:9464
+	PasswordFile string `yaml:"password_file"` // the broker's format; basic authentication when set
+	CertFile     string `yaml:"cert_file"`     // TLS certificate (PEM)
+	KeyFile      string `yaml:"key_file"`      // its key (PEM)
 }
 
 // Validate checks the publishing settings, from the file or from flags, as
