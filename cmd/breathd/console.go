@@ -20,6 +20,7 @@ type console struct {
 	w          io.Writer
 	trendEvery int64
 	rows       map[string]int64
+	quiet      bool // no breath rows and no trend lines: events only
 }
 
 func newConsole(w io.Writer) *console {
@@ -42,6 +43,9 @@ const consoleHeader = "device     breath    rr vti mL  ppeak  pplat   peep     d
 func (c *console) Breath(dev string, b *mechanics.Breath, w *mechanics.Window) {
 	c.mu.Lock()
 	defer c.mu.Unlock()
+	if c.quiet {
+		return
+	}
 	if len(c.rows) == 0 {
 		fmt.Fprintln(c.w, consoleHeader)
 	}

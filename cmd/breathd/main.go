@@ -175,8 +175,12 @@ func parseFlags(fs *flag.FlagSet, args []string) error {
 // terminal.
 func newLogger(stderr io.Writer, level zerolog.Level) zerolog.Logger {
 	zerolog.TimeFieldFormat = time.RFC3339Nano
-	w := stderr
-	if f, ok := stderr.(*os.File); ok && isatty.IsTerminal(f.Fd()) {
+	var w io.Writer = stderr
+	f, _ := stderr.(*os.File)
+	switch {
+	case f != nil && toJournal(os.Getenv("JOURNAL_STREAM"), f):
+		w = newJournalWriter(stderr) // under systemd: the journal's priorities
+	case f != nil && isatty.IsTerminal(f.Fd()):
 		w = zerolog.ConsoleWriter{Out: stderr, TimeFormat: "15:04:05"}
 	}
 	return zerolog.New(w).Level(level).With().Timestamp().Logger()

@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"os"
 	"strings"
 	"sync"
 	"time"
@@ -19,6 +20,7 @@ import (
 	"breathd/stream/publish"
 	"breathd/stream/web"
 
+	"github.com/mattn/go-isatty"
 	"github.com/rs/zerolog"
 )
 
@@ -118,7 +120,7 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		return err
 	}
 	return runDevices(ctx, []deviceRun{{id: dev, src: src, format: f, mechanics: mcfg, rules: alerts.Defaults(),
-		live: sp > 0 || path == "-", recording: path}}, *every, stdout, log, sess, ws)
+		live: sp > 0 || path == "-", recording: path}}, setup{every: *every, stdout: stdout, log: log, sess: sess, web: ws, rows: true})
 }
 
 func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -129,6 +131,7 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 	var mf mqttFlags
 	mf.register(fs)
 	httpListen := fs.String("http", "", "serve /metrics and /healthz on this address, overriding http.listen")
+	breathRows := fs.Bool("breath-rows", false, "print a row per breath even when stdout is not a terminal (a service's journal gets only events and counters)")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -195,7 +198,11 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 	}
 	stopNotify := notifySystemd(log)
 	defer stopNotify()
-	return runDevices(ctx, runs, cfg.ReportEvery, stdout, log, sess, ws)
+	rows := *breathRows
+	if f, ok := stdout.(*os.File); ok && isatty.IsTerminal(f.Fd()) {
+		rows = true
+	}
+	return runDevices(ctx, runs, setup{every: cfg.ReportEvery, stdout: stdout, log: log, sess: sess, web: ws, rows: rows})
 }
 
 // openSource opens a device's byte source, wrapped in a recorder when the
@@ -244,12 +251,27 @@ func openSource(d *config.Device, log zerolog.Logger) (io.ReadCloser, error) {
 // is done, printing their breaths, events and counters, and publishing
 // them when sess is set. A device that fails is logged and does not stop
 // the others.
-func runDevices(ctx context.Context, runs []deviceRun, every time.Duration, stdout io.Writer, log zerolog.Logger, sess *mqttSession, ws *web.Server) error {
+// setup is how runDevices runs its devices: the counters' period, where
+// rows and counters go, the log, the MQTT session and HTTP listener (nil
+// when off), and whether each breath gets a row.
+type setup struct {
+	every  time.Duration
+	stdout io.Writer
+	log    zerolog.Logger
+	sess   *mqttSession
+	web    *web.Server
+	rows   bool
+}
+
+func runDevices(ctx context.Context, runs []deviceRun, o setup) error {
+	every, stdout, log, sess, ws := o.every, o.stdout, o.log, o.sess, o.web
 	defer sess.close()
 	if ws != nil {
 		defer ws.Close()
 	}
+	log.Info().Str("version", versionString()).Int("devices", len(runs)).Msg("breathd started (advisory research software, not a medical device)")
 	con := newConsole(stdout)
+	con.quiet = !o.rows
 	report := func(st stream.Status) {
 		con.mu.Lock()
 		defer con.mu.Unlock()
@@ -292,9 +314,13 @@ func runDevices(ctx context.Context, runs []deviceRun, every time.Duration, stdo
 				dlog.Error().Err(err).Msg("device stopped")
 				errs[i] = err
 			}
+			c := st.Counts
+			dlog.Info().Int64("samples", c.Samples).Int64("breaths", st.Breaths).Int64("events", st.Events).
+				Int64("bad_lines", c.BadTotal()).Int64("gaps", c.Gaps).Msg("final counters")
 		})
 	}
 	wg.Wait()
+	log.Info().Msg("breathd stopped")
 	return errors.Join(errs...)
 }
 
