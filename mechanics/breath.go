@@ -10,6 +10,7 @@
 package mechanics
 
 import (
+	"iter"
 	"math"
 	"strings"
 	"time"
@@ -35,6 +36,31 @@ const (
 
 var flagWords = [numFlags]string{"no_plateau", "active_effort", "fit_unreliable", "gap", "leak",
 	"incomplete_exhalation", "variable_flow", "plateau_unsettled", "intrinsic_peep", "si_unreliable"}
+
+// flagMeanings say what each flag means, for the data dictionary.
+var flagMeanings = [numFlags]string{
+	"no end-inspiratory pause with near-zero flow: pplat, dp and cstat are null",
+	"the patient's own effort shows in the waveform: the fitted mechanics and the plateau are not the lung's",
+	"the equation-of-motion fit is poor (R² under 0.95) or the breath is active: fit_* are not mechanics",
+	"the breath before this one was dropped (a gap, an open circuit or a breath too long)",
+	"leak over 15 %",
+	"end-expiratory flow below −5 L/min, past its noise",
+	"inspiratory flow not constant: no rinsp, no stress index",
+	"the pressure was still falling at the pause's end: the plateau is not static",
+	"end-expiratory flow past its noise and peepi ≥ 0.5 cmH2O: dp and cstat use total PEEP",
+	"the stress index's segment is short, its fit poor, or undecided; or the pause shows relaxation",
+}
+
+// FlagInfo yields each flag's output word and meaning, in bit order.
+func FlagInfo() iter.Seq2[string, string] {
+	return func(yield func(string, string) bool) {
+		for i := range numFlags {
+			if !yield(flagWords[i], flagMeanings[i]) {
+				return
+			}
+		}
+	}
+}
 
 // Words lists the flags' output words.
 func (f Flags) Words() []string {

@@ -38,7 +38,7 @@ var fields = [...]Field{
 	{"ti", "s", 3, "inspiratory time, with any pause", 0},
 	{"te", "s", 3, "expiratory time", 0},
 	{"rr", "/min", 2, "breath rate, 60/(ti + te)", 0},
-	{"ie", "1", 2, "te/ti", 0},
+	{"ie", "1", 2, "te/ti: the x of the I:E ratio 1:x", 0},
 	{"vti", "mL", 1, "inspired volume", 0},
 	{"vte", "mL", 1, "expired volume", 0},
 	{"leak", "%", 1, "(vti − vte)/vti", 0},

@@ -71,6 +71,9 @@ type Config struct {
 	// machine with a second core. Ignored for live or paced sources.
 	Ahead bool
 	Every time.Duration // how often Report is called while running; default 5 s
+	// Run names this run of the device in event ids (and, by the caller,
+	// in records); default the start time in base 36.
+	Run string
 	// Report, if set, is called every Every from a separate goroutine and
 	// once more, with Final set, when Run ends.
 	Report func(Status)
@@ -169,7 +172,11 @@ func Run(ctx context.Context, src io.ReadCloser, cfg Config) (Status, error) {
 		l.win, err = mechanics.NewWindow(cfg.Window)
 	}
 	if err == nil {
-		l.eng, err = alerts.NewEngine(cfg.Device, strconv.FormatInt(l.start.Unix(), 36), cfg.Rules)
+		run := cfg.Run
+		if run == "" {
+			run = strconv.FormatInt(l.start.Unix(), 36)
+		}
+		l.eng, err = alerts.NewEngine(cfg.Device, run, cfg.Rules)
 	}
 	if err != nil {
 		src.Close()

@@ -22,6 +22,7 @@ import (
 	"breathd/stream"
 	"breathd/stream/lines"
 	"breathd/stream/payload"
+	"breathd/stream/publish"
 
 	"github.com/mattn/go-isatty"
 	"github.com/schollz/progressbar/v3"
@@ -54,7 +55,7 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	}
 	stopBar := showProgress(file, stderr)
 	start := time.Now()
-	st, runErr := stream.Run(ctx, src, stream.Config{Device: idFromPath(o.path), Format: o.format, Mechanics: o.mechanics,
+	st, runErr := stream.Run(ctx, src, stream.Config{Device: idFromPath(o.path), Run: o.run, Format: o.format, Mechanics: o.mechanics,
 		Rules: alerts.Defaults(), Sink: sinks, Ahead: runtime.NumCPU() > 1})
 	stopBar()
 	if csv != nil {
@@ -84,6 +85,7 @@ type analyzeOptions struct {
 	format            lines.Format
 	mechanics         mechanics.Config
 	csv, events, plot string // outputs: a path, - for stdout, or "" for none
+	run               string // this analysis's id, in the CSV and the event ids
 	plotFrom          float64
 	plotSpan          float64
 }
@@ -107,6 +109,7 @@ func parseAnalyze(args []string, stderr io.Writer) (o analyzeOptions, err error)
 		return o, usagef("analyze takes one recording (a file, or - for stdin); got %d", fs.NArg())
 	}
 	o.path = fs.Arg(0)
+	o.run = publish.NewRun()
 	if o.format, err = ff.format(); err != nil {
 		return o, err
 	}
@@ -131,7 +134,12 @@ func (o *analyzeOptions) sinks(sum *summary, outs *outputs, stdout io.Writer) (s
 	if w, err := outs.open("--csv", o.csv, stdout); err != nil {
 		return nil, nil, nil, err
 	} else if w != nil {
-		csv = payload.NewCSVWriter(w)
+		csv = payload.NewCSVWriter(w, o.run)
+		if o.csv != "-" { // its description beside it, as a Frictionless Table Schema
+			if err := os.WriteFile(o.csv+".schema.json", payload.TableSchema(), 0o644); err != nil {
+				return nil, nil, nil, fmt.Errorf("--csv: %w", err)
+			}
+		}
 		sinks = append(sinks, csv)
 	}
 	if w, err := outs.open("--events", o.events, stdout); err != nil {

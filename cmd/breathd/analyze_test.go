@@ -1,6 +1,7 @@
 package main
 
 import (
+	"encoding/json"
 	"flag"
 	"fmt"
 	stdpng "image/png"
@@ -8,6 +9,8 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"breathd/stream/payload"
 )
 
 var update = flag.Bool("update", false, "rewrite the golden files in testdata")
@@ -21,7 +24,28 @@ func TestAnalyzeDemoGolden(t *testing.T) {
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, errs)
 	}
-	got, _ := os.ReadFile(out)
+	raw, _ := os.ReadFile(out)
+	// the run column is this analysis's random id: the same on every row,
+	// left out of the comparison
+	var kept []string
+	run := ""
+	for i, line := range strings.Split(strings.TrimSuffix(string(raw), "\n"), "\n") {
+		id := line[strings.LastIndexByte(line, ',')+1:]
+		if i > 0 {
+			if run == "" {
+				run = id
+			}
+			if id != run || len(id) != 8 {
+				t.Fatalf("row %d: run %q, the first row's %q", i, id, run)
+			}
+		}
+		kept = append(kept, line[:strings.LastIndexByte(line, ',')])
+	}
+	got := []byte(strings.Join(kept, "\n") + "\n")
+	var schema struct{ Fields []struct{ Name string } }
+	if data, err := os.ReadFile(out + ".schema.json"); err != nil || json.Unmarshal(data, &schema) != nil || len(schema.Fields) != len(kept[0])-len(strings.ReplaceAll(kept[0], ",", ""))+2 {
+		t.Errorf("the Table Schema beside the CSV: %v, %d fields", err, len(schema.Fields))
+	}
 	golden := filepath.Join(root, "testdata", "demo.breaths.csv")
 	if *update {
 		if err := os.WriteFile(golden, got, 0o644); err != nil {
@@ -42,7 +66,7 @@ func TestAnalyzeDemoGolden(t *testing.T) {
 		t.Fatalf("%d lines, golden has %d", len(gl), len(wl))
 	}
 	header := strings.SplitN(string(got), "\n", 2)[0]
-	const contract = "seq,t_start,t_end,ti,te,rr,ie,vti,vte,leak,ppeak,pplat,peep,pmean,dp,cstat,cdyn,rinsp,fit_r,fit_c,fit_p0,fit_r2,tau,mp,si,e2_pct,pause_decay,peepi,vt_pbw,eef,flags,at"
+	const contract = "seq,t_start,t_end,ti,te,rr,ie,vti,vte,leak,ppeak,pplat,peep,pmean,dp,cstat,cdyn,rinsp,fit_r,fit_c,fit_p0,fit_r2,tau,mp,si,e2_pct,pause_decay,peepi,vt_pbw,eef,flags,at,device" // and run
 	if header != contract {
 		t.Errorf("header %q", header)
 	}
@@ -189,5 +213,25 @@ func TestAnalyzeSummaryChannels(t *testing.T) {
 	}
 	if code, _, errs = runCLI(t, "analyze", "--flow-delay", "later", "testdata/demo.txt.gz"); code != 2 || !strings.Contains(errs, "want auto or a duration") {
 		t.Errorf("a bad delay: exit %d: %s", code, errs)
+	}
+}
+
+// TestFieldsVerb: breathd fields prints the dictionary the meta topic
+// carries, and the CSV's column names as analyze writes them.
+func TestFieldsVerb(t *testing.T) {
+	code, out, errs := runCLI(t, "fields", "--json")
+	var d payload.Dict
+	if code != 0 || json.Unmarshal([]byte(out), &d) != nil || len(d.CSV) == 0 || d.V != payload.Version {
+		t.Fatalf("fields --json: exit %d %s %s", code, errs, out)
+	}
+	code, cols, _ := runCLI(t, "fields", "--csv-columns")
+	csv := filepath.Join(t.TempDir(), "b.csv")
+	runCLI(t, "analyze", "--csv", csv, "testdata/bad-lines.txt")
+	data, _ := os.ReadFile(csv)
+	if header, _, _ := strings.Cut(string(data), "\n"); code != 0 || strings.TrimSpace(cols) != header {
+		t.Errorf("fields --csv-columns %q, the CSV's header %q", cols, header)
+	}
+	if code, out, _ := runCLI(t, "fields"); code != 0 || !strings.Contains(out, "cstat") || !strings.Contains(out, "mL/cm[H2O]") {
+		t.Errorf("fields: exit %d\n%s", code, out)
 	}
 }

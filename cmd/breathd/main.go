@@ -36,6 +36,7 @@ Usage:
   breathd watch [flags]            show live values, events and status from the broker
   breathd check FILE               validate a configuration file and show what it would run
   breathd ports                    list serial ports with their USB details
+  breathd fields [flags]           the data dictionary: every field with its unit and meaning
   breathd version                  print the version
   breathd help                     this text
 
@@ -94,6 +95,8 @@ func dispatch(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		return cmdCheck(rest, stdout, stderr)
 	case "ports":
 		return cmdPorts(rest, stdout, stderr)
+	case "fields":
+		return cmdFields(rest, stdout, stderr)
 	case "version", "--version":
 		fmt.Fprintln(stdout, "breathd", versionString())
 		return nil
@@ -108,10 +111,31 @@ func versionString() string {
 	if version != "" {
 		return version
 	}
-	if bi, ok := debug.ReadBuildInfo(); ok && bi.Main.Version != "" && bi.Main.Version != "(devel)" {
-		return bi.Main.Version
+	bi, ok := debug.ReadBuildInfo()
+	if !ok {
+		return "unknown"
 	}
-	return "dev"
+	if bi.Main.Version != "" && bi.Main.Version != "(devel)" {
+		return bi.Main.Version // go install breathd@version
+	}
+	// a build from a checkout: the commit it was built from
+	rev, dirty := "", false
+	for _, s := range bi.Settings {
+		switch s.Key {
+		case "vcs.revision":
+			rev = s.Value
+		case "vcs.modified":
+			dirty = s.Value == "true"
+		}
+	}
+	if rev == "" {
+		return "devel"
+	}
+	v := "devel+" + rev[:min(12, len(rev))]
+	if dirty {
+		v += "-modified"
+	}
+	return v
 }
 
 // newFlags makes a verb's flag set whose errors become usage errors.

@@ -10,6 +10,7 @@ import (
 	"sync"
 	"time"
 
+	"breathd/alerts"
 	"breathd/cmd/breathd/internal/config"
 	"breathd/stream"
 	"breathd/stream/broker"
@@ -127,7 +128,7 @@ func startMQTT(c config.MQTT, e config.Embedded, stateDir string, log zerolog.Lo
 }
 
 // publisher makes the publisher of one device.
-func (s *mqttSession) publisher(dev string, ctl *stream.Control) (*publish.Publisher, error) {
+func (s *mqttSession) publisher(dev, run string, rules []alerts.Rule, ctl *stream.Control) (*publish.Publisher, error) {
 	dir := ""
 	if s.stateDir != "" {
 		dir = filepath.Join(s.stateDir, "queue", dev)
@@ -138,7 +139,7 @@ func (s *mqttSession) publisher(dev string, ctl *stream.Control) (*publish.Publi
 	}
 	p, err := publish.New(publish.Config{Dial: s.dial(), Root: s.cfg.Root, Device: dev, ClientID: clientID,
 		StateDir: dir, BreathQoS: byte(s.cfg.BreathQoS), StatusEvery: s.cfg.StatusEvery, Version: versionString(),
-		Status: ctl.Status, Log: s.log.With().Str("device", dev).Logger()})
+		Run: run, Rules: rules, Status: ctl.Status, Log: s.log.With().Str("device", dev).Logger()})
 	if err != nil {
 		return nil, err
 	}

@@ -272,6 +272,7 @@ func runDevices(ctx context.Context, runs []deviceRun, o setup) error {
 	log.Info().Str("version", versionString()).Int("devices", len(runs)).Msg("breathd started (advisory research software, not a medical device)")
 	con := newConsole(stdout)
 	con.quiet = !o.rows
+	run := publish.NewRun() // one id for this run of breathd, in event ids, records and the status
 	report := func(st stream.Status) {
 		con.mu.Lock()
 		defer con.mu.Unlock()
@@ -287,7 +288,7 @@ func runDevices(ctx context.Context, runs []deviceRun, o setup) error {
 			var pub *publish.Publisher
 			if sess != nil {
 				var err error
-				if pub, err = sess.publisher(r.id, ctl); err != nil {
+				if pub, err = sess.publisher(r.id, run, r.rules, ctl); err != nil {
 					r.src.Close()
 					errs[i] = fmt.Errorf("device %s: %w", r.id, err)
 					return
@@ -303,7 +304,7 @@ func runDevices(ctx context.Context, runs []deviceRun, o setup) error {
 				ws.Add(wd)
 			}
 			st, err := stream.Run(ctx, r.src, stream.Config{Device: r.id, Format: r.format, Mechanics: r.mechanics,
-				Rules: r.rules, Live: r.live, Every: every, Report: report, Log: dlog, Sink: sinks, Control: ctl})
+				Rules: r.rules, Live: r.live, Every: every, Report: report, Log: dlog, Sink: sinks, Control: ctl, Run: run})
 			if err == nil && r.recording != "" && ctx.Err() == nil {
 				err = nothingDecoded(r.recording, st)
 			}

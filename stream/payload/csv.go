@@ -11,12 +11,14 @@ import (
 	"breathd/stream"
 )
 
-// CSVWriter writes one row per breath: seq, the fields of
-// mechanics.Fields() with their Decimals, flags (space-separated words)
-// and at (the wall-clock time of the breath's start, RFC 3339), with a
-// header first; a null value is an empty cell. Safe for one goroutine.
+// CSVWriter writes one row per breath, the columns of CSVColumns: seq, the
+// fields of mechanics.Fields() with their Decimals, flags (space-separated
+// words), at (the wall-clock time of the breath's start, RFC 3339), device
+// and run; a header first; a null value is an empty cell. Safe for one
+// goroutine.
 type CSVWriter struct {
 	w    *bufio.Writer
+	run  string
 	buf  []byte
 	vals []float64
 	dec  []int
@@ -25,20 +27,24 @@ type CSVWriter struct {
 // A CSVWriter is a sink of the device loop.
 var _ stream.Sink = (*CSVWriter)(nil)
 
-// NewCSVWriter writes the header to w.
-func NewCSVWriter(w io.Writer) *CSVWriter {
-	c := &CSVWriter{w: bufio.NewWriterSize(w, 64<<10), buf: make([]byte, 0, 512), vals: make([]float64, 0, mechanics.NumFields)}
-	c.w.WriteString("seq")
+// NewCSVWriter writes the header to w; run names the run in every row.
+func NewCSVWriter(w io.Writer, run string) *CSVWriter {
+	c := &CSVWriter{w: bufio.NewWriterSize(w, 64<<10), run: run, buf: make([]byte, 0, 512), vals: make([]float64, 0, mechanics.NumFields)}
+	for i, col := range CSVColumns() {
+		if i > 0 {
+			c.w.WriteByte(',')
+		}
+		c.w.WriteString(col.Name)
+	}
+	c.w.WriteByte('\n')
 	for _, f := range mechanics.Fields() {
-		c.w.WriteString("," + f.Name)
 		c.dec = append(c.dec, f.Decimals)
 	}
-	c.w.WriteString(",flags,at\n")
 	return c
 }
 
 // Breath writes one row.
-func (c *CSVWriter) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
+func (c *CSVWriter) Breath(device string, b *mechanics.Breath, _ *mechanics.Window) {
 	buf := strconv.AppendInt(c.buf[:0], b.Seq, 10)
 	c.vals = b.Values(c.vals[:0])
 	for i, v := range c.vals {
@@ -53,6 +59,8 @@ func (c *CSVWriter) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
 	if !b.At.IsZero() {
 		buf = b.At.UTC().AppendFormat(buf, time.RFC3339Nano)
 	}
+	buf = append(append(buf, ','), device...) // a device id has no comma (CheckDevice)
+	buf = append(append(buf, ','), c.run...)
 	buf = append(buf, '\n')
 	c.w.Write(buf)
 	c.buf = buf

@@ -20,6 +20,8 @@ import (
 // Version is the "v" of every JSON payload.
 const Version = 2
 
+var nanValue = math.NaN()
+
 // num is a number that encodes NaN and ±Inf as null.
 type num float64
 
@@ -47,21 +49,21 @@ func (t stamp) MarshalJSON() ([]byte, error) {
 // eventPayload is an event transition as published and as written by
 // analyze --events.
 type eventPayload struct {
-	V          int               `json:"v"`
-	ID         string            `json:"id"`
-	Seq        int64             `json:"seq"`
-	Device     string            `json:"device"`
-	Rule       string            `json:"rule"`
-	Transition alerts.Transition `json:"transition"`
-	Level      alerts.Level      `json:"level"`
-	Field      string            `json:"field"`
-	Value      num               `json:"value"`
-	Threshold  num               `json:"threshold"`
-	Low        num               `json:"low"`
-	High       num               `json:"high"`
-	Latching   bool              `json:"latching"`
-	T          num               `json:"t"`
-	At         stamp             `json:"at"`
+	V          int               `json:"v" doc:"|payload version"`
+	ID         string            `json:"id" doc:"|unique id: <device>/<rule>/<run>-<seq>; an acknowledgement names it"`
+	Seq        int64             `json:"seq" doc:"|transition number of this device and run"`
+	Device     string            `json:"device" doc:"|device id"`
+	Rule       string            `json:"rule" doc:"|the rule's id"`
+	Transition alerts.Transition `json:"transition" doc:"|raised, cleared or acknowledged"`
+	Level      alerts.Level      `json:"level" doc:"|notice, warning or urgent"`
+	Field      string            `json:"field" doc:"|the field the rule watches"`
+	Value      num               `json:"value" doc:"|the field's value at the transition, in its unit"`
+	Threshold  num               `json:"threshold" doc:"|the threshold of an above or below rule"`
+	Low        num               `json:"low" doc:"|the band's low end of an outside rule"`
+	High       num               `json:"high" doc:"|the band's high end of an outside rule"`
+	Latching   bool              `json:"latching" doc:"|stays raised until acknowledged"`
+	T          num               `json:"t" doc:"s|stream time of the transition"`
+	At         stamp             `json:"at" doc:"|wall-clock time of the transition (RFC 3339, UTC)"`
 }
 
 // Event encodes an event as its JSON payload (one line, no newline).
@@ -74,15 +76,15 @@ func Event(ev *alerts.Event) []byte {
 	return b
 }
 
-// Breath encodes a breath record: "v", device, "at" (the wall-clock time
-// of its start, b.At; null when unknown), and the fields of
-// mechanics.Fields() under their names (null when not computed), seq and
+// Breath encodes a breath record (BreathKeys): "v", device, run, seq, "at"
+// (the wall-clock time of its start, b.At; null when unknown), the fields
+// of mechanics.Fields() under their names (null when not computed) and
 // flags.
-func Breath(device string, b *mechanics.Breath) []byte {
+func Breath(device, run string, b *mechanics.Breath) []byte {
 	var vals [mechanics.NumFields]float64
 	v := b.Values(vals[:0])
-	m := make(map[string]any, len(v)+5)
-	m["v"], m["device"], m["seq"], m["at"] = Version, device, b.Seq, stamp(b.At)
+	m := make(map[string]any, len(v)+6)
+	m["v"], m["device"], m["run"], m["seq"], m["at"] = Version, device, run, b.Seq, stamp(b.At)
 	for i, f := range mechanics.Fields() {
 		m[f.Name] = num(v[i])
 	}
@@ -96,11 +98,11 @@ func Breath(device string, b *mechanics.Breath) []byte {
 }
 
 type statPayload struct {
-	Median num `json:"median"`
-	Q1     num `json:"q1"`
-	Q3     num `json:"q3"`
-	IQR    num `json:"iqr"`
-	N      int `json:"n"`
+	Median num `json:"median" doc:"|median of the window's values, in the field's unit"`
+	Q1     num `json:"q1" doc:"|first quartile"`
+	Q3     num `json:"q3" doc:"|third quartile"`
+	IQR    num `json:"iqr" doc:"|q3 − q1"`
+	N      int `json:"n" doc:"|values counted (those no flag disowns)"`
 }
 
 type risePayload struct {
@@ -112,6 +114,23 @@ type risePayload struct {
 	BaselineBreaths int    `json:"baseline_breaths"`
 }
 
+// trendPayload is the rolling window as published.
+type trendPayload struct {
+	V                int                    `json:"v" doc:"|payload version"`
+	Device           string                 `json:"device" doc:"|device id"`
+	Seq              int64                  `json:"seq" doc:"|the seq of the breath after which the window was computed"`
+	At               stamp                  `json:"at" doc:"|wall-clock time of the computation"`
+	T                num                    `json:"t" doc:"s|stream time of the window's end"`
+	Breaths          int                    `json:"breaths" doc:"|breaths in the window (the last 20 within 5 min)"`
+	Span             num                    `json:"span" doc:"s|time the window's breaths span"`
+	Fields           map[string]statPayload `json:"fields" doc:"|per breath field: median, q1, q3, iqr and n (see trend_stat)"`
+	ComplianceSlope  num                    `json:"compliance_slope" doc:"mL/cm[H2O]/h|slope of cstat (or of reliable fit_c) over the last 15 min of breaths; null until they span 10 min"`
+	DPSlope          num                    `json:"dp_slope" doc:"cm[H2O]/h|slope of dp over the last 15 min of breaths; null until they span 10 min"`
+	ComplianceChange num                    `json:"compliance_change" doc:"%|the window's median compliance against the 30 min before it"`
+	NetFlow          num                    `json:"net_flow" doc:"L/min|median (vti − vte)/duration: the flow sensor's drift, or a leak"`
+	Rise             risePayload            `json:"rise" doc:"|why the peak pressure rose: cause (none, resistive, elastic, both), method, peak, resistive and elastic rises in cm[H2O], baseline_breaths"`
+}
+
 // Trend encodes the rolling window summary after breath seq.
 func Trend(device string, seq int64, tr *mechanics.Trend, at time.Time) []byte {
 	fields := make(map[string]statPayload, mechanics.NumFields)
@@ -120,36 +139,22 @@ func Trend(device string, seq int64, tr *mechanics.Trend, at time.Time) []byte {
 		fields[f.Name] = statPayload{num(s.Median), num(s.Q1), num(s.Q3), num(s.IQR()), s.N}
 	}
 	r := tr.Rise
-	out, _ := json.Marshal(struct {
-		V                int                    `json:"v"`
-		Device           string                 `json:"device"`
-		Seq              int64                  `json:"seq"`
-		At               stamp                  `json:"at"`
-		T                num                    `json:"t"`
-		Breaths          int                    `json:"breaths"`
-		Span             num                    `json:"span"`
-		Fields           map[string]statPayload `json:"fields"`
-		ComplianceSlope  num                    `json:"compliance_slope"`
-		DPSlope          num                    `json:"dp_slope"`
-		ComplianceChange num                    `json:"compliance_change"`
-		NetFlow          num                    `json:"net_flow"`
-		Rise             risePayload            `json:"rise"`
-	}{Version, device, seq, stamp(at), num(tr.At), tr.N, num(tr.Span), fields,
+	out, _ := json.Marshal(trendPayload{Version, device, seq, stamp(at), num(tr.At), tr.N, num(tr.Span), fields,
 		num(tr.CSlope), num(tr.DPSlope), num(tr.CChange), num(tr.NetFlow),
 		risePayload{r.Cause, r.Method, num(r.PeakRise), num(r.ResistiveRise), num(r.ElasticRise), r.BaselineBreaths}})
 	return out
 }
 
 type activePayload struct {
-	Rule     string       `json:"rule"`
-	Level    alerts.Level `json:"level"`
-	Field    string       `json:"field"`
-	EventID  string       `json:"event_id"`
-	Since    num          `json:"since_t"`
-	SinceAt  stamp        `json:"since_at"`
-	Value    num          `json:"value"`
-	Acked    bool         `json:"acknowledged"`
-	Latching bool         `json:"latching"`
+	Rule     string       `json:"rule" doc:"|the rule's id"`
+	Level    alerts.Level `json:"level" doc:"|notice, warning or urgent"`
+	Field    string       `json:"field" doc:"|the field it watches"`
+	EventID  string       `json:"event_id" doc:"|the id of the event that raised it: what an acknowledgement names"`
+	Since    num          `json:"since_t" doc:"s|stream time it was raised"`
+	SinceAt  stamp        `json:"since_at" doc:"|wall-clock time it was raised"`
+	Value    num          `json:"value" doc:"|the field's latest value"`
+	Acked    bool         `json:"acknowledged" doc:"|acknowledged (a latching rule still raised)"`
+	Latching bool         `json:"latching" doc:"|stays raised until acknowledged"`
 }
 
 // Active encodes the set of rules raised now.
@@ -205,22 +210,25 @@ func Status(device string, seq int64, state, reason string, src Source, st strea
 		counters["recording_files"], counters["recording_write_errors"] = st.Recording.Files, st.Recording.WriteErrors
 	}
 	counters["queue_last_error"] = pc.QueueError
-	out, _ := json.Marshal(struct {
-		V        int            `json:"v"`
-		Device   string         `json:"device"`
-		Seq      int64          `json:"seq"`
-		State    string         `json:"state"`
-		Reason   string         `json:"reason,omitempty"`
-		At       stamp          `json:"at"`
-		Run      string         `json:"run,omitempty"`
-		Host     string         `json:"host,omitempty"`
-		Since    stamp          `json:"since"`
-		Version  string         `json:"version,omitempty"`
-		Hint     string         `json:"format_hint"`
-		Advisory string         `json:"advisory"`
-		Counters map[string]any `json:"counters"`
-	}{Version, device, seq, state, reason, stamp(at), src.Run, src.Host, stamp(src.Since), src.Version, st.Hint, stream.Advisory, counters})
+	out, _ := json.Marshal(statusPayload{Version, device, seq, state, reason, stamp(at), src.Run, src.Host, stamp(src.Since), src.Version, st.Hint, stream.Advisory, counters})
 	return out
+}
+
+// statusPayload is the status as published.
+type statusPayload struct {
+	V        int            `json:"v" doc:"|payload version"`
+	Device   string         `json:"device" doc:"|device id"`
+	Seq      int64          `json:"seq" doc:"|status number of this run"`
+	State    string         `json:"state" doc:"|online or offline"`
+	Reason   string         `json:"reason,omitempty" doc:"|why offline: stopped, or connection lost (the will)"`
+	At       stamp          `json:"at" doc:"|wall-clock time of the status"`
+	Run      string         `json:"run,omitempty" doc:"|random id of this breathd run"`
+	Host     string         `json:"host,omitempty" doc:"|the machine's name"`
+	Since    stamp          `json:"since" doc:"|when the run started"`
+	Version  string         `json:"version,omitempty" doc:"|breathd's version"`
+	Hint     string         `json:"format_hint" doc:"|a plausibility check's advice when the stream looks decoded with wrong units or sign; empty when none"`
+	Advisory string         `json:"advisory" doc:"|the advisory notice"`
+	Counters map[string]any `json:"counters" doc:"|the device's counters (see counters)"`
 }
 
 // Will is the status a broker publishes when the device's publisher is

@@ -7,6 +7,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -78,16 +79,16 @@ func golden(t *testing.T, name string, got []byte) {
 }
 
 func TestBreathGolden(t *testing.T) {
-	golden(t, "breath.json", Breath("bed1", breath(12)))
+	golden(t, "breath.json", Breath("bed1", "r1", breath(12)))
 	b := breath(13)
 	b.PPlat, b.DP, b.Cstat, b.Rinsp, b.PauseDecay, b.SI = math.NaN(), math.NaN(), math.NaN(), math.NaN(), math.NaN(), math.NaN()
 	b.FitR2 = 0.81
 	b.Flags = mechanics.FlagNoPlateau | mechanics.FlagActiveEffort | mechanics.FlagFitUnreliable
-	golden(t, "breath_active.json", Breath("bed1", b))
+	golden(t, "breath_active.json", Breath("bed1", "r1", b))
 	// without a clock, no wall-clock time: null, never the time of the run
 	b.At = time.Time{}
 	var m map[string]any
-	json.Unmarshal(Breath("bed1", b), &m)
+	json.Unmarshal(Breath("bed1", "r1", b), &m)
 	if v, ok := m["at"]; !ok || v != nil {
 		t.Errorf("unknown time encoded as %v", v)
 	}
@@ -155,16 +156,17 @@ func TestStatusGolden(t *testing.T) {
 	}
 }
 
-// TestCSV: the header is seq, every field of the registry, flags; a
-// value not computed is an empty cell. DESIGN §6.
+// TestCSV: the header is seq, every field of the registry, flags, at,
+// device and run; a value not computed is an empty cell. DESIGN §6.
 func TestCSV(t *testing.T) {
 	var buf bytes.Buffer
-	c := NewCSVWriter(&buf)
+	c := NewCSVWriter(&buf, "r1")
 	c.Breath("bed1", breath(1), nil)
 	c.Flush()
 	rows := strings.Split(strings.TrimSpace(buf.String()), "\n")
 	head, row := strings.Split(rows[0], ","), strings.Split(rows[1], ",")
-	if len(head) != mechanics.NumFields+3 || head[0] != "seq" || head[len(head)-2] != "flags" || head[len(head)-1] != "at" || len(row) != len(head) {
+	if len(head) != mechanics.NumFields+5 || head[0] != "seq" || !slices.Equal(head[len(head)-4:], []string{"flags", "at", "device", "run"}) ||
+		len(row) != len(head) || !slices.Equal(row[len(row)-2:], []string{"bed1", "r1"}) {
 		t.Fatalf("header %v, row %v", head, row)
 	}
 	for i, f := range mechanics.Fields() {

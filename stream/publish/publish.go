@@ -41,6 +41,8 @@ type Config struct {
 	BreathQoS   byte
 	StatusEvery time.Duration // periodic status; default 10 s
 	Version     string        // breathd's version, in the status payload
+	Run         string        // this run's id, in the status and records; default random
+	Rules       []alerts.Rule // the device's rules, stated on the meta topic
 	// Status returns the device's counters for the status payload.
 	Status func() stream.Status
 	Log    zerolog.Logger
@@ -86,10 +88,11 @@ type record struct {
 // broker is away or the queue is full they are dropped and counted. It is
 // a Sink and an EventSink.
 type Publisher struct {
-	cfg    Config
-	client mqtt.Client
-	sp     *spool
-	topics struct{ breath, trend, event, active, status, ack string }
+	cfg     Config
+	client  mqtt.Client
+	sp      *spool
+	topics  struct{ breath, trend, event, active, status, meta, ack string }
+	metaDue atomic.Bool // the meta topic is to be (re)published
 
 	q0      chan record
 	kick    chan struct{}
@@ -171,11 +174,14 @@ func New(cfg Config) (*Publisher, error) {
 	p := &Publisher{cfg: cfg, sp: sp, q0: make(chan record, breathQueue), kick: make(chan struct{}, 1), done: make(chan struct{}),
 		evKick: make(chan struct{}, 1), evDone: make(chan struct{}), lock: lock}
 	host, _ := os.Hostname()
-	run := make([]byte, 4)
-	rand.Read(run)
-	p.src = payload.Source{Run: hex.EncodeToString(run), Host: host, Since: time.Now(), Version: cfg.Version}
+	run := cfg.Run
+	if run == "" {
+		run = NewRun()
+	}
+	p.src = payload.Source{Run: run, Host: host, Since: time.Now(), Version: cfg.Version}
 	base := cfg.Root + "/" + cfg.Device + "/"
 	p.topics.breath, p.topics.trend, p.topics.event = base+"breath", base+"trend", base+"event"
+	p.topics.meta = base + "meta"
 	p.topics.active, p.topics.status, p.topics.ack = base+"active", base+"status", base+"ack"
 
 	p.options(opts)
@@ -197,6 +203,7 @@ func New(cfg Config) (*Publisher, error) {
 	}
 	p.client = client
 	p.statusDue.Store(true)
+	p.metaDue.Store(true)
 	p.setActive(nil) // this run's rules start with none raised
 	go p.persistEvents()
 	p.wg.Go(p.sendQueued)
@@ -321,7 +328,7 @@ func (p *Publisher) Breath(_ string, b *mechanics.Breath, w *mechanics.Window) {
 	if !at.IsZero() {
 		at = at.Add(time.Duration((b.TEnd - b.TStart) * float64(time.Second)))
 	}
-	p.offer(record{topic: p.topics.breath, qos: p.cfg.BreathQoS, payload: payload.Breath(p.cfg.Device, b)})
+	p.offer(record{topic: p.topics.breath, qos: p.cfg.BreathQoS, payload: payload.Breath(p.cfg.Device, p.src.Run, b)})
 	p.offer(record{topic: p.topics.trend, retain: true, payload: payload.Trend(p.cfg.Device, b.Seq, w.Trend(), at)})
 }
 
@@ -420,6 +427,13 @@ func (p *Publisher) sendQueued() {
 			if p.statusDue.Swap(false) {
 				if !p.publish1(p.topics.status, true, p.statusPayload("online", "")) {
 					p.statusDue.Store(true)
+					break
+				}
+			}
+			if p.metaDue.Swap(false) {
+				meta := payload.Meta(p.cfg.Device, p.src.Run, p.cfg.Version, p.cfg.Rules, time.Now())
+				if !p.publish1(p.topics.meta, true, meta) {
+					p.metaDue.Store(true)
 					break
 				}
 			}
@@ -527,6 +541,13 @@ out:
 		err = errors.Join(err, fmt.Errorf("%d queued messages not delivered and lost: there is no state directory (set state_dir or --state-dir to keep them)", left))
 	}
 	return err
+}
+
+// NewRun makes a random run id: 8 hex digits.
+func NewRun() string {
+	b := make([]byte, 4)
+	rand.Read(b)
+	return hex.EncodeToString(b)
 }
 
 // Connected reports whether the publisher is connected to its broker now.

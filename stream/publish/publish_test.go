@@ -121,14 +121,14 @@ func TestPublishToEmbeddedBroker(t *testing.T) {
 	b := startTestBroker(t)
 	sub, subc := subscribe(t, b.URL(), "breathd/#", true, "test-sub")
 	ctl := &stream.Control{}
-	pub, err := New(Config{Dial: publisherDial(b), Device: "bed9", StateDir: t.TempDir(),
+	// a latching driving-pressure rule on a stiff lung, so that there is something to acknowledge
+	rules, _ := alerts.Merge(alerts.Defaults(), []alerts.Override{{ID: "driving_pressure_high", Latching: new(true)}})
+	pub, err := New(Config{Dial: publisherDial(b), Device: "bed9", StateDir: t.TempDir(), Version: "v9.9.9", Rules: rules,
 		StatusEvery: 200 * time.Millisecond, Status: ctl.Status, Log: zerolog.Nop()})
 	if err != nil {
 		t.Fatal(err)
 	}
 	pub.SetAck(ctl.Ack)
-	// a latching driving-pressure rule on a stiff lung, so that there is something to acknowledge
-	rules, _ := alerts.Merge(alerts.Defaults(), []alerts.Override{{ID: "driving_pressure_high", Latching: new(true)}})
 	sc := lungsim.Scenario{Seed: 3, RateHz: 100, Duration: 3 * time.Minute,
 		Settings: lungsim.Settings{Mode: lungsim.ModeVC, R: 10, C: 25, PEEP: 5, RR: 15, VT: 450, Ti: 1.2, Pause: 0.3}}
 	sc.Defaults()
@@ -142,10 +142,36 @@ func TestPublishToEmbeddedBroker(t *testing.T) {
 	waitUntil(t, "active", func() bool { return sub.last("breathd/bed9/active") != nil })
 	waitUntil(t, "status", func() bool { return sub.last("breathd/bed9/status") != nil })
 
+	// the meta topic: retained, the run and version of the status, the
+	// device's rules, and the data dictionary as payload.Dictionary gives it
+	lateMeta, _ := subscribe(t, b.URL(), "breathd/bed9/meta", true, "late-meta")
+	waitUntil(t, "the retained meta", func() bool { return lateMeta.last("breathd/bed9/meta") != nil })
+	var meta struct {
+		V                 int
+		Device, Run       string
+		Version, Advisory string
+		Rules             []struct {
+			ID       string
+			Latching bool
+		}
+		Dictionary json.RawMessage
+	}
+	mm := lateMeta.last("breathd/bed9/meta")
+	json.Unmarshal(mm.Payload(), &meta)
+	want, _ := json.Marshal(payload.Dictionary("v9.9.9"))
+	if !mm.Retained() || meta.V != payload.Version || meta.Device != "bed9" || meta.Run != pub.src.Run || meta.Version != "v9.9.9" ||
+		meta.Advisory == "" || len(meta.Rules) != len(rules) || string(meta.Dictionary) != string(want) {
+		t.Errorf("meta (retained %v): %s", mm.Retained(), mm.Payload())
+	}
+	for _, r := range meta.Rules {
+		if r.ID == "driving_pressure_high" && !r.Latching {
+			t.Error("the meta topic's rules are not the device's")
+		}
+	}
 	var breath map[string]any
 	json.Unmarshal(sub.last("breathd/bed9/breath").Payload(), &breath)
 	// a stream without a clock, read as fast as possible: no wall-clock time
-	if at, ok := breath["at"]; breath["v"] != float64(payload.Version) || breath["pplat"] == nil || breath["seq"] != float64(st.Breaths) || !ok || at != nil {
+	if at, ok := breath["at"]; breath["v"] != float64(payload.Version) || breath["pplat"] == nil || breath["seq"] != float64(st.Breaths) || !ok || at != nil || breath["run"] != pub.src.Run {
 		t.Errorf("breath payload %v", breath)
 	}
 	var ev map[string]any
