@@ -70,11 +70,17 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	if runErr == nil {
 		runErr = nothingDecoded(o.path, st)
 	}
-	if pd != nil && runErr == nil {
+	if o.plot != "" && runErr == nil {
 		if err := plot.Write(o.plot, o.path, o.format, o.plotFrom, o.plotSpan, pd); err != nil {
 			return fmt.Errorf("--plot: %w", err)
 		}
 		fmt.Fprintf(stderr, "  picture: %s\n", o.plot)
+	}
+	if o.edf != "" && runErr == nil {
+		if err := writeEDF(o.edf, o.path, o.format, st.Counts.RateHz(), pd.Breaths(), pd.Events()); err != nil {
+			return fmt.Errorf("--edf: %w", err)
+		}
+		fmt.Fprintf(stderr, "  EDF+: %s\n", o.edf)
 	}
 	return runErr
 }
@@ -86,6 +92,7 @@ type analyzeOptions struct {
 	mechanics         mechanics.Config
 	csv, events, plot string // outputs: a path, - for stdout, or "" for none
 	run               string // this analysis's id, in the CSV and the event ids
+	edf               string // EDF+ output, "" for none
 	plotFrom          float64
 	plotSpan          float64
 }
@@ -102,6 +109,7 @@ func parseAnalyze(args []string, stderr io.Writer) (o analyzeOptions, err error)
 	fs.StringVar(&o.plot, "plot", "", "draw the recording to this .png or .svg: a pressure/flow/volume strip and the trends")
 	fs.Float64Var(&o.plotFrom, "plot-from", 0, "start of the strip, s of stream time")
 	fs.Float64Var(&o.plotSpan, "plot-span", 30, "length of the strip, s")
+	fs.StringVar(&o.edf, "edf", "", "write the samples (airway pressure, flow, volume) with breath and event annotations to this EDF+ file")
 	if err := parseFlags(fs, args); err != nil {
 		return o, err
 	}
@@ -123,6 +131,9 @@ func parseAnalyze(args []string, stderr io.Writer) (o analyzeOptions, err error)
 		if err := plot.Check(o.plot, o.plotSpan); err != nil {
 			return o, usagef("--plot: %w", err)
 		}
+	}
+	if o.edf != "" && o.path == "-" {
+		return o, usagef("--edf needs a file, not stdin: it reads the samples again")
 	}
 	return o, nil
 }
@@ -148,7 +159,7 @@ func (o *analyzeOptions) sinks(sum *summary, outs *outputs, stdout io.Writer) (s
 		sinks = append(sinks, &eventLines{w: w})
 	}
 	var pd *plot.Data
-	if o.plot != "" {
+	if o.plot != "" || o.edf != "" {
 		pd = &plot.Data{Device: idFromPath(o.path), File: o.path}
 		sinks = append(sinks, pd)
 	}

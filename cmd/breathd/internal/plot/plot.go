@@ -61,6 +61,12 @@ func (p *Data) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
 // Event keeps a copy of the event.
 func (p *Data) Event(ev *alerts.Event, _ []alerts.Active) { p.events = append(p.events, *ev) }
 
+// Breaths are the breaths collected, in order.
+func (p *Data) Breaths() []mechanics.Breath { return p.breaths }
+
+// Events are the events collected, in order.
+func (p *Data) Events() []alerts.Event { return p.events }
+
 // ErrKind is returned for a picture that is not .png or .svg.
 var ErrKind = errors.New("the picture is .png or .svg")
 
