@@ -11,6 +11,7 @@ package edf
 
 import (
 	"bufio"
+	"cmp"
 	"errors"
 	"fmt"
 	"io"
@@ -74,7 +75,7 @@ func Create(path string, start time.Time, patient, recording string, sigs []Sign
 		return nil, err
 	}
 	wr := &Writer{f: f, w: bufio.NewWriterSize(f, 256<<10), sigs: sigs, rate: rate, start: start}
-	slices.SortStableFunc(anns, func(a, b Annotation) int { return cmpFloat(a.Onset, b.Onset) })
+	slices.SortStableFunc(anns, func(a, b Annotation) int { return cmp.Compare(a.Onset, b.Onset) })
 	// annotations by record, and the largest record's bytes
 	for _, a := range anns {
 		k := max(0, int(math.Floor(a.Onset)))
@@ -98,16 +99,6 @@ func Create(path string, start time.Time, patient, recording string, sigs []Sign
 		return nil, err
 	}
 	return wr, nil
-}
-
-func cmpFloat(a, b float64) int {
-	switch {
-	case a < b:
-		return -1
-	case a > b:
-		return 1
-	}
-	return 0
 }
 
 // recordTAL is the annotation signal's bytes of record k: the time-keeping

@@ -11,6 +11,7 @@
 package web
 
 import (
+	"cmp"
 	"context"
 	"crypto/tls"
 	"encoding/json"
@@ -84,25 +85,10 @@ func (e *EventCounts) each(f func(rule, transition string, n int64)) {
 	for k := range e.n {
 		keys = append(keys, k)
 	}
-	slices.SortFunc(keys, func(a, b [2]string) int {
-		if c := cmpString(a[0], b[0]); c != 0 {
-			return c
-		}
-		return cmpString(a[1], b[1])
-	})
+	slices.SortFunc(keys, func(a, b [2]string) int { return cmp.Or(cmp.Compare(a[0], b[0]), cmp.Compare(a[1], b[1])) })
 	for _, k := range keys {
 		f(k[0], k[1], e.n[k])
 	}
-}
-
-func cmpString(a, b string) int {
-	switch {
-	case a < b:
-		return -1
-	case a > b:
-		return 1
-	}
-	return 0
 }
 
 // Server is the running listener.
