@@ -55,6 +55,7 @@ type Recorder struct {
 
 	writeErrs atomic.Int64
 	files     atomic.Int64
+	current   atomic.Pointer[string] // the open file's path
 	failing   bool
 }
 
@@ -133,6 +134,14 @@ func (r *Recorder) Files() int64 { return r.files.Load() }
 // source does not have.
 func (r *Recorder) Source() io.ReadCloser { return r.src }
 
+// File is the path of the file being written, "" before the first.
+func (r *Recorder) File() string {
+	if p := r.current.Load(); p != nil {
+		return *p
+	}
+	return ""
+}
+
 // RecordStats are the recorder's counts, for the status.
 func (r *Recorder) RecordStats() RecordStats {
 	return RecordStats{Files: r.files.Load(), WriteErrors: r.writeErrs.Load()}
@@ -207,6 +216,8 @@ func (r *Recorder) rotate(now time.Time) {
 	}
 	r.f, r.size = f, 0
 	r.files.Add(1)
+	path := f.Name()
+	r.current.Store(&path)
 	r.log.Info().Str("file", f.Name()).Msg("recording")
 	r.write([]byte("# breathd recording v1 name=" + r.cfg.Name + "\n# " + r.cfg.Header() + "\n"))
 }

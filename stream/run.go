@@ -26,6 +26,21 @@ type Sink interface {
 	Breath(device string, b *mechanics.Breath, w *mechanics.Window)
 }
 
+// SampleSink takes every decoded sample, with what the loop knows of the
+// stream's timing.
+type SampleSink interface {
+	Sample(s *lines.Sample, t Timing)
+}
+
+// Timing is what the loop knows of the stream's time.
+type Timing interface {
+	// WallAt is the wall-clock time of stream time t (zero when unknown).
+	WallAt(t float64) time.Time
+	// RateHz is the configured rate, or the measured one once the stream
+	// spans 2 s; 0 before.
+	RateHz() float64
+}
+
 // EventSink is implemented by sinks that also take rule events. Calls for
 // one device are serialised but may come from different goroutines (the
 // loop, the technical ticker, an acknowledgement). active is the set of
@@ -71,6 +86,9 @@ type Config struct {
 	// machine with a second core. Ignored for live or paced sources.
 	Ahead bool
 	Every time.Duration // how often Report is called while running; default 5 s
+	// Samples, if set, is given every decoded sample on the loop's
+	// goroutine (the EDF+ copy of a recording); it must not allocate.
+	Samples SampleSink
 	// Run names this run of the device in event ids (and, by the caller,
 	// in records); default the start time in base 36.
 	Run string
@@ -329,6 +347,9 @@ const runBatch = 256
 func (l *loop) sample(s *lines.Sample) {
 	l.nSamples++
 	l.san.sample(s.Paw, s.Flow)
+	if l.cfg.Samples != nil {
+		l.cfg.Samples.Sample(s, l)
+	}
 	if b := l.seg.Add(s.T, s.Paw, s.Flow, s.Gap); b != nil {
 		l.breath(b, s.T)
 	}
@@ -435,6 +456,21 @@ func (l *loop) breath(b *mechanics.Breath, cur float64) {
 	l.lastT = b.TEnd
 	l.deliver(l.eng.Breath(b, l.win, l.wall(b.TEnd, cur)))
 	l.emu.Unlock()
+}
+
+// WallAt is the wall-clock time of stream time t (Timing).
+func (l *loop) WallAt(t float64) time.Time { return l.wall(t, t) }
+
+// RateHz is the configured rate, or the measured one once the stream spans
+// 2 s (Timing).
+func (l *loop) RateHz() float64 {
+	if r := l.dec.Format().RateHz; r > 0 {
+		return r
+	}
+	if c := l.counts(); c.Span() >= 2 {
+		return c.RateHz()
+	}
+	return 0
 }
 
 // wall is the wall-clock time of stream time t, cur being the stream time

@@ -23,11 +23,6 @@ var edfSignals = []edf.Signal{
 	{Label: "Volume", Unit: "mL", Min: -2000, Max: 4000, Prefilter: "flow integrated from each breath's start"},
 }
 
-// edfPlaceholderStart is the start an EDF+ file states when the recording
-// has no clock lines: the format needs a date, and this one cannot be
-// taken for a real one.
-var edfPlaceholderStart = time.Date(1985, 1, 1, 0, 0, 0, 0, time.UTC)
-
 // writeEDF decodes the recording at path again and writes its samples to
 // out as EDF+: airway pressure, flow and the volume since each breath's
 // start at the measured rate, with an annotation at each breath start
@@ -65,7 +60,7 @@ func writeEDF(out, path string, f lines.Format, rateHz float64, breaths []mechan
 		}
 		if first {
 			first, t0 = false, s.T
-			start := edfPlaceholderStart
+			start := edf.UnknownStart
 			for _, b := range breaths {
 				if !b.At.IsZero() {
 					start = b.At.Add(-time.Duration((b.TStart - t0) * float64(time.Second)))

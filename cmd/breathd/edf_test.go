@@ -27,26 +27,10 @@ func TestAnalyzeEDF(t *testing.T) {
 	breaths := strings.Count(string(rows), "\n") - 1
 	evData, _ := os.ReadFile(events)
 	nEvents := strings.Count(string(evData), "\n")
-	fh, err := os.Open(out)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer fh.Close()
-	f, err := edf.Read(fh)
-	if err != nil {
-		t.Fatal(err)
-	}
+	f, nb, ne := readEDF(t, out)
 	var units []string
 	for _, s := range f.Signals {
 		units = append(units, s.Label+" "+s.Unit)
-	}
-	nb, ne := 0, 0
-	for _, a := range f.Annotations {
-		if strings.HasPrefix(a.Text, "breath ") {
-			nb++
-		} else {
-			ne++
-		}
 	}
 	if f.Rates[0] != 50 || strings.Join(units, ", ") != "Paw cmH2O, Flow L/min, Volume mL" || len(f.Samples[0]) < 75000 || nb != breaths || ne != nEvents {
 		t.Errorf("EDF+: %d Hz, %v, %d samples, %d breath and %d event annotations; the CSV has %d breaths, the events %d",
@@ -83,4 +67,46 @@ print(json.dumps({"sfreq": float(r.info["sfreq"]), "channels": r.ch_names, "n": 
 		t.Errorf("MNE read %s; ours: %d samples, paw[100] %v", res, len(f.Samples[0]), f.Samples[0][100])
 	}
 	t.Logf("MNE: %s", strings.TrimSpace(string(res)))
+}
+
+// TestReplayRecordsEDF: replay --record DIR --record-edf leaves an EDF+
+// file beside the raw one, with the stream's breaths annotated.
+func TestReplayRecordsEDF(t *testing.T) {
+	dir := t.TempDir()
+	if code, _, errs := runCLI(t, "replay", "--no-mqtt", "--speed", "max", "--record", dir, "--record-edf", "testdata/demo.txt.gz"); code != 0 {
+		t.Fatal(errs)
+	}
+	raws, _ := filepath.Glob(filepath.Join(dir, "*.txt"))
+	if len(raws) != 1 {
+		t.Fatalf("raw files %v", raws)
+	}
+	f, nb, _ := readEDF(t, strings.TrimSuffix(raws[0], ".txt")+".edf")
+	if f.Rates[0] != 50 || len(f.Signals) != 2 || nb != 398 {
+		t.Errorf("%v Hz, %d signals, %d breath annotations (the demo has 398 breaths)", f.Rates, len(f.Signals), nb)
+	}
+	if code, _, errs := runCLI(t, "replay", "--no-mqtt", "--record-edf", "testdata/demo.txt.gz"); code != 2 || !strings.Contains(errs, "--record-edf needs --record DIR") {
+		t.Errorf("--record-edf alone: exit %d %s", code, errs)
+	}
+}
+
+// readEDF reads an EDF+ file with the package's reader and counts its
+// breath annotations and the others.
+func readEDF(t *testing.T, path string) (f *edf.File, breaths, others int) {
+	t.Helper()
+	fh, err := os.Open(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer fh.Close()
+	if f, err = edf.Read(fh); err != nil {
+		t.Fatal(err)
+	}
+	for _, a := range f.Annotations {
+		if strings.HasPrefix(a.Text, "breath ") {
+			breaths++
+		} else {
+			others++
+		}
+	}
+	return f, breaths, others
 }

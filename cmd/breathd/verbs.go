@@ -15,6 +15,7 @@ import (
 	"breathd/device"
 	"breathd/mechanics"
 	"breathd/stream"
+	"breathd/stream/edfrec"
 	"breathd/stream/lines"
 	"breathd/stream/payload"
 	"breathd/stream/publish"
@@ -33,6 +34,7 @@ type deviceRun struct {
 	rules     []alerts.Rule
 	live      bool
 	recording string // the file replayed: a run of it that decodes nothing is an error
+	recordEDF bool   // an EDF+ copy beside the raw recording
 }
 
 func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -42,6 +44,7 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	speed := fs.String("speed", "1", "1 for real time, N for N times faster, max for as fast as possible")
 	id := fs.String("id", "", "device id (default: the file's base name)")
 	record := fs.String("record", "", "also record the stream raw into this directory")
+	recordEDF := fs.Bool("record-edf", false, "with --record: also write the decoded samples as EDF+ beside each raw file")
 	level := fs.String("log-level", "info", "log level: debug, info, warn or error")
 	every := fs.Duration("report-every", 5*time.Second, "how often to print the counters")
 	var pf mechanicsFlags
@@ -54,6 +57,9 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	}
 	if fs.NArg() != 1 {
 		return usagef("replay takes one recording (a file, or - for stdin); got %d", fs.NArg())
+	}
+	if *recordEDF && *record == "" {
+		return usagef("--record-edf needs --record DIR")
 	}
 	if err := config.CheckEvery(*every); err != nil {
 		return usagef("--report-every %w", err)
@@ -120,7 +126,7 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		return err
 	}
 	return runDevices(ctx, []deviceRun{{id: dev, src: src, format: f, mechanics: mcfg, rules: alerts.Defaults(),
-		live: sp > 0 || path == "-", recording: path}}, setup{every: *every, stdout: stdout, log: log, sess: sess, web: ws, rows: true})
+		live: sp > 0 || path == "-", recording: path, recordEDF: *recordEDF}}, setup{every: *every, stdout: stdout, log: log, sess: sess, web: ws, rows: true})
 }
 
 func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -179,7 +185,7 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 		dlog.Info().Str("source", describeSource(d)).Msg("device opened")
 		runs = append(runs, deviceRun{id: d.ID, src: src, format: d.Format.Lines(),
 			mechanics: d.Mechanics(), rules: d.MergedRules(),
-			live: d.File == nil || d.File.Speed > 0})
+			live: d.File == nil || d.File.Speed > 0, recordEDF: d.Record != nil && d.Record.EDF})
 	}
 	mf.apply(&cfg.MQTT, &cfg.Embedded, &cfg.StateDir)
 	sess, err := startMQTT(cfg.MQTT, cfg.Embedded, cfg.StateDir, log)
@@ -295,6 +301,12 @@ func runDevices(ctx context.Context, runs []deviceRun, o setup) error {
 				}
 				sinks = append(sinks, pub)
 			}
+			var samples *edfrec.Recording // the EDF+ copy beside the raw recording
+			var sampleSink stream.SampleSink
+			if rf, ok := r.src.(edfrec.RawFile); ok && r.recordEDF {
+				samples = edfrec.New(rf, dlog)
+				sinks, sampleSink = append(sinks, samples), samples
+			}
 			if ws != nil {
 				wd := &web.Device{ID: r.id, Status: ctl.Status, Events: &web.EventCounts{}}
 				if pub != nil {
@@ -304,7 +316,10 @@ func runDevices(ctx context.Context, runs []deviceRun, o setup) error {
 				ws.Add(wd)
 			}
 			st, err := stream.Run(ctx, r.src, stream.Config{Device: r.id, Format: r.format, Mechanics: r.mechanics,
-				Rules: r.rules, Live: r.live, Every: every, Report: report, Log: dlog, Sink: sinks, Control: ctl, Run: run})
+				Rules: r.rules, Live: r.live, Every: every, Report: report, Log: dlog, Sink: sinks, Control: ctl, Run: run, Samples: sampleSink})
+			if samples != nil {
+				samples.Close()
+			}
 			if err == nil && r.recording != "" && ctx.Err() == nil {
 				err = nothingDecoded(r.recording, st)
 			}

@@ -30,6 +30,11 @@ type Signal struct {
 	Min, Max               float64
 }
 
+// UnknownStart is the start a file states when the recording's wall-clock
+// time is not known: the format needs a date, and this one cannot be taken
+// for a real one.
+var UnknownStart = time.Date(1985, 1, 1, 0, 0, 0, 0, time.UTC)
+
 // Annotation is a note at an onset, s from the file's start.
 type Annotation struct {
 	Onset float64
@@ -50,7 +55,8 @@ type Writer struct {
 	sigs    []Signal
 	rate    int // samples per signal per 1 s record
 	ann     [][]Annotation
-	annSize int // bytes of the annotation signal per record
+	pending []Annotation // Annotate's, written into the next records that have room
+	annSize int          // bytes of the annotation signal per record
 	cur     [][]int16
 	n       int // samples in the current record
 	records int
@@ -62,6 +68,17 @@ type Writer struct {
 // (whole seconds are kept; the fraction becomes the first record's
 // offset). anns are sorted by onset.
 func Create(path string, start time.Time, patient, recording string, sigs []Signal, rate int, anns []Annotation) (*Writer, error) {
+	return create(path, start, patient, recording, sigs, rate, anns, 64)
+}
+
+// CreateLive starts a file whose annotations come while it is written
+// (Annotate): each data record holds up to annBytes of them, the rest go
+// into the records after it. Its header says -1 data records until Close.
+func CreateLive(path string, start time.Time, patient, recording string, sigs []Signal, rate, annBytes int) (*Writer, error) {
+	return create(path, start, patient, recording, sigs, rate, nil, annBytes)
+}
+
+func create(path string, start time.Time, patient, recording string, sigs []Signal, rate int, anns []Annotation, annBytes int) (*Writer, error) {
 	if rate <= 0 || rate > 10000 {
 		return nil, fmt.Errorf("edf: a rate of %d samples per second", rate)
 	}
@@ -70,7 +87,7 @@ func Create(path string, start time.Time, patient, recording string, sigs []Sign
 			return nil, fmt.Errorf("edf: signal %s: physical range %g…%g", s.Label, s.Min, s.Max)
 		}
 	}
-	f, err := os.Create(path)
+	f, err := os.OpenFile(path, os.O_RDWR|os.O_CREATE|os.O_TRUNC, 0o640) // like a raw recording: patient data
 	if err != nil {
 		return nil, err
 	}
@@ -84,7 +101,7 @@ func Create(path string, start time.Time, patient, recording string, sigs []Sign
 		}
 		wr.ann[k] = append(wr.ann[k], a)
 	}
-	wr.annSize = 64
+	wr.annSize = annBytes
 	for k, list := range wr.ann {
 		wr.annSize = max(wr.annSize, len(recordTAL(k, list)))
 	}
@@ -106,19 +123,36 @@ func Create(path string, start time.Time, patient, recording string, sigs []Sign
 func recordTAL(k int, list []Annotation) []byte {
 	b := []byte("+" + strconv.Itoa(k) + "\x14\x14\x00")
 	for _, a := range list {
-		b = append(b, '+')
-		b = strconv.AppendFloat(b, a.Onset, 'f', -1, 64)
-		b = append(b, 0x14)
-		b = append(b, strings.Map(func(r rune) rune {
-			if r < 0x20 || r > 0x7e {
-				return '_'
-			}
-			return r
-		}, a.Text)...)
-		b = append(b, 0x14, 0)
+		b = appendTAL(b, a)
 	}
 	return b
 }
+
+// appendTAL appends one annotation as a time-stamped annotation list.
+func appendTAL(b []byte, a Annotation) []byte {
+	b = append(b, '+')
+	b = strconv.AppendFloat(b, max(0, a.Onset), 'f', -1, 64)
+	b = append(b, 0x14)
+	b = append(b, strings.Map(func(r rune) rune {
+		if r < 0x20 || r > 0x7e {
+			return '_'
+		}
+		return r
+	}, a.Text)...)
+	return append(b, 0x14, 0)
+}
+
+// Annotate adds a note to be written into the next data record with room
+// (its text cut to fit one record).
+func (wr *Writer) Annotate(a Annotation) {
+	if room := wr.annSize - 48; len(a.Text) > room {
+		a.Text = a.Text[:max(0, room)]
+	}
+	wr.pending = append(wr.pending, a)
+}
+
+// Seconds is the time the samples written so far span, s.
+func (wr *Writer) Seconds() float64 { return float64(wr.records) + float64(wr.n)/float64(wr.rate) }
 
 func field(s string, n int) string {
 	if len(s) > n {
@@ -220,6 +254,14 @@ func (wr *Writer) flush() error {
 		list = wr.ann[wr.records]
 	}
 	tal := recordTAL(wr.records, list)
+	for len(wr.pending) > 0 {
+		next := appendTAL(nil, wr.pending[0])
+		if len(tal)+len(next) > wr.annSize {
+			break
+		}
+		tal = append(tal, next...)
+		wr.pending = wr.pending[1:]
+	}
 	wr.w.Write(tal)
 	_, err := wr.w.Write(make([]byte, wr.annSize-len(tal)))
 	wr.records++
@@ -234,7 +276,7 @@ func (wr *Writer) Close() error {
 	if wr.n > 0 {
 		wr.flush()
 	}
-	for wr.records < len(wr.ann) {
+	for wr.records < len(wr.ann) || len(wr.pending) > 0 {
 		wr.flush()
 	}
 	err := wr.w.Flush()

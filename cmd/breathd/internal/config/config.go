@@ -111,6 +111,7 @@ type Record struct {
 	Dir        string        `yaml:"dir"`
 	MaxMiB     int64         `yaml:"max_mib"`
 	ClockEvery time.Duration `yaml:"clock_every"`
+	EDF        bool          `yaml:"edf"` // also write the decoded samples as EDF+ beside each raw file
 }
 
 // Lines is the decoder's format.
