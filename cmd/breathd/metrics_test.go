@@ -34,6 +34,9 @@ func TestMetricsAndHealth(t *testing.T) {
 	httpAddr := fmt.Sprintf("127.0.0.1:%d", freePort(t))
 	cmd := breathd("run", "--config", conf, "--http", httpAddr)
 	stdin, _ := cmd.StdinPipe()
+	// held open to the end: the device then idles instead of ending (and
+	// the pipe is not closed by its finalizer when the collector runs)
+	defer stdin.Close()
 	out := &syncBuffer{}
 	cmd.Stdout, cmd.Stderr = out, out
 	if err := cmd.Start(); err != nil {
