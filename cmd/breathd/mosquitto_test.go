@@ -545,6 +545,7 @@ func TestSIGTERMDuringBrokerOutage(t *testing.T) {
 	state := t.TempDir()
 	cmd := breathd("replay", "--id", "bed6", "--broker", fmt.Sprintf("mqtt://127.0.0.1:%d", port), "--state-dir", state, "-")
 	stdin, _ := cmd.StdinPipe()
+	defer stdin.Close() // referenced to the end, so that no finalizer closes it
 	out := &syncBuffer{}
 	cmd.Stdout, cmd.Stderr = out, out
 	if err := cmd.Start(); err != nil {
