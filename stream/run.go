@@ -32,6 +32,16 @@ type SampleSink interface {
 	Sample(s *lines.Sample, t Timing)
 }
 
+// SampleSinks passes each sample to every sink in turn.
+type SampleSinks []SampleSink
+
+// Sample calls every sink.
+func (s SampleSinks) Sample(x *lines.Sample, t Timing) {
+	for _, k := range s {
+		k.Sample(x, t)
+	}
+}
+
 // Timing is what the loop knows of the stream's time.
 type Timing interface {
 	// WallAt is the wall-clock time of stream time t (zero when unknown).

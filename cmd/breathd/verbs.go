@@ -302,13 +302,14 @@ func runDevices(ctx context.Context, runs []deviceRun, o setup) error {
 				sinks = append(sinks, pub)
 			}
 			var samples *edfrec.Recording // the EDF+ copy beside the raw recording
-			var sampleSink stream.SampleSink
+			var sampleSinks stream.SampleSinks
 			if rf, ok := r.src.(edfrec.RawFile); ok && r.recordEDF {
 				samples = edfrec.New(rf, dlog)
-				sinks, sampleSink = append(sinks, samples), samples
+				sinks, sampleSinks = append(sinks, samples), append(sampleSinks, samples)
 			}
 			if ws != nil {
-				wd := &web.Device{ID: r.id, Status: ctl.Status, Events: &web.EventCounts{}}
+				wd := &web.Device{ID: r.id, Status: ctl.Status, Events: &web.EventCounts{}, Live: web.NewLive(), Ack: ctl.Ack}
+				sinks, sampleSinks = append(sinks, wd.Live), append(sampleSinks, wd.Live)
 				if pub != nil {
 					wd.Publisher = func() (payload.Counters, bool) { return pub.Counters(), pub.Connected() }
 				}
@@ -316,7 +317,7 @@ func runDevices(ctx context.Context, runs []deviceRun, o setup) error {
 				ws.Add(wd)
 			}
 			st, err := stream.Run(ctx, r.src, stream.Config{Device: r.id, Format: r.format, Mechanics: r.mechanics,
-				Rules: r.rules, Live: r.live, Every: every, Report: report, Log: dlog, Sink: sinks, Control: ctl, Run: run, Samples: sampleSink})
+				Rules: r.rules, Live: r.live, Every: every, Report: report, Log: dlog, Sink: sinks, Control: ctl, Run: run, Samples: samplesOf(sampleSinks)})
 			if samples != nil {
 				samples.Close()
 			}
@@ -425,4 +426,16 @@ func startHTTP(c config.HTTP, log zerolog.Logger) (*web.Server, error) {
 		return nil, nil
 	}
 	return web.Start(web.Config{Listen: c.Listen, PasswordFile: c.PasswordFile, CertFile: c.CertFile, KeyFile: c.KeyFile}, log)
+}
+
+// samplesOf is the loop's sample sink: nil when there is none, so that the
+// loop's per-sample call is skipped.
+func samplesOf(s stream.SampleSinks) stream.SampleSink {
+	switch len(s) {
+	case 0:
+		return nil
+	case 1:
+		return s[0]
+	}
+	return s
 }

@@ -214,6 +214,9 @@ func (u Users) Check(name, password string) bool {
 	return ok && subtle.ConstantTimeCompare([]byte(password), e.password) == 1
 }
 
+// CanAck reports whether name may acknowledge events.
+func (u Users) CanAck(name string) bool { return u[name].ack }
+
 // user is an entry of the password file.
 type user struct {
 	password []byte

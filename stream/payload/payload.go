@@ -22,11 +22,15 @@ const Version = 2
 
 var nanValue = math.NaN()
 
-// num is a number that encodes NaN and ±Inf as null.
-type num float64
+// Num is a number that encodes NaN and ±Inf as null, rounded to 4
+// decimals: every number breathd writes as JSON.
+type Num float64
+
+// num is Num, as this package writes it.
+type num = Num
 
 // MarshalJSON encodes the number, or null when it is not finite.
-func (n num) MarshalJSON() ([]byte, error) {
+func (n Num) MarshalJSON() ([]byte, error) {
 	f := float64(n)
 	if math.IsNaN(f) || math.IsInf(f, 0) {
 		return []byte("null"), nil

@@ -1,6 +1,6 @@
-// Package web is breathd's HTTP listener for operations: /metrics in the
-// Prometheus text exposition format (through the Prometheus Go client) and
-// /healthz. It reads each device's counters when asked, from the same
+// Package web is breathd's HTTP listener: the bedside page (/, its live
+// stream /live and /ack), /metrics in the Prometheus text exposition format
+// (through the Prometheus Go client) and /healthz. It reads each device's counters when asked, from the same
 // snapshot the status topic publishes; nothing is counted twice and the
 // per-sample path is not touched.
 //
@@ -56,6 +56,10 @@ type Device struct {
 	// connected; nil when the device does not publish.
 	Publisher func() (payload.Counters, bool)
 	Events    *EventCounts
+	// Live is what the page shows of it (nil: not on the page); Ack
+	// acknowledges one of its raised rules.
+	Live *Live
+	Ack  func(id string) error
 }
 
 // EventCounts counts a device's rule transitions by rule and transition:
@@ -93,9 +97,11 @@ func (e *EventCounts) each(f func(rule, transition string, n int64)) {
 
 // Server is the running listener.
 type Server struct {
-	srv *http.Server
-	ln  net.Listener
-	log zerolog.Logger
+	srv   *http.Server
+	ln    net.Listener
+	log   zerolog.Logger
+	users broker.Users  // nil without a password file
+	done  chan struct{} // closed by Close: the page's streams end
 
 	mu      sync.Mutex
 	devices []*Device
@@ -117,12 +123,13 @@ func Start(cfg Config, log zerolog.Logger) (*Server, error) {
 			return nil, fmt.Errorf("http: %w", err)
 		}
 	}
-	s := &Server{log: log}
+	s := &Server{log: log, users: users, done: make(chan struct{})}
 	reg := prometheus.NewRegistry()
 	reg.MustRegister(collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}), (*collector)(s))
 	mux := http.NewServeMux()
 	mux.Handle("GET /metrics", promhttp.HandlerFor(reg, promhttp.HandlerOpts{ErrorLog: promLog{log}}))
 	mux.HandleFunc("GET /healthz", s.healthz)
+	s.pageRoutes(mux)
 	var h http.Handler = mux
 	if users != nil {
 		h = basicAuth(users, mux)
@@ -163,6 +170,7 @@ func (s *Server) Add(d *Device) {
 
 // Close stops the listener, waiting a moment for requests in flight.
 func (s *Server) Close() error {
+	close(s.done)
 	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Second)
 	defer cancel()
 	return s.srv.Shutdown(ctx)

@@ -1,0 +1,158 @@
+package web
+
+import (
+	"fmt"
+	"math"
+	"sync"
+	"time"
+
+	"breathd/alerts"
+	"breathd/mechanics"
+	"breathd/stream"
+	"breathd/stream/lines"
+	"breathd/stream/payload"
+)
+
+// The page's data, per device, in bounded rings allocated once.
+const (
+	waveHz      = 25            // the strip's points per second
+	waveKeep    = 60 * waveHz   // a minute of them
+	breathsKeep = 24 * 60 * 40  // 24 h at up to 40 breaths a minute
+	eventsKeep  = 256           // the latest rule transitions
+	binDT       = 1.0 / waveHz  // s
+	noWave      = math.MaxInt64 // a cursor before any point
+)
+
+// wavePoint is one point of the strip: stream time, airway pressure
+// (cmH2O), flow (L/min) and volume since the breath's start (mL).
+type wavePoint [4]float64
+
+// trendRow is what the page's trends need of a breath: stream time,
+// wall-clock (Unix ms, 0 unknown), then trendFields (NaN: null or
+// disowned by a flag).
+type trendRow [2 + len(trendFields)]float64
+
+// trendFields are the per-breath fields the page's trends offer.
+var trendFields = [...]string{"rr", "vti", "ppeak", "pplat", "peep", "peepi", "dp", "cstat", "fit_c", "fit_r", "mp", "vt_pbw"}
+
+// Live keeps what the page shows of one device: the waveform at 25 Hz, the
+// last 24 h of breaths, the latest breath, the rise attribution, the rule
+// transitions and the raised rules. It is the device loop's sample,
+// breath and event sink; the page's streams read it under its lock.
+type Live struct {
+	mu sync.Mutex
+
+	// the strip
+	wave          [waveKeep]wavePoint
+	waveN         int64 // points ever made
+	bin           wavePoint
+	binN          int
+	vol, prevT    float64
+	prevFlow      float64
+	lastSampleAt  time.Time
+	sinceSampleAt int // samples since lastSampleAt was taken
+
+	breaths    []trendRow // ring
+	breathsN   int64
+	lastBreath []byte // its payload
+	rise       string // why the pressure rose, in words
+	events     [eventsKeep]alerts.Event
+	eventsN    int64
+	active     []alerts.Active
+	activeSeq  int64
+}
+
+// NewLive makes a device's live state.
+func NewLive() *Live {
+	return &Live{breaths: make([]trendRow, breathsKeep), prevT: math.NaN()}
+}
+
+// Sample takes one decoded sample (stream.SampleSink): 40 ms means of
+// pressure and flow, the volume integrated at the full rate. It does not
+// allocate.
+func (l *Live) Sample(s *lines.Sample, _ stream.Timing) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	dt := 0.0
+	if !math.IsNaN(l.prevT) && !s.Gap {
+		dt = s.T - l.prevT
+		l.vol += (l.prevFlow + s.Flow) / 2 / 60 * dt * 1000
+	}
+	l.prevT, l.prevFlow = s.T, s.Flow
+	if l.binN == 0 {
+		l.bin = wavePoint{s.T, 0, 0, 0}
+	}
+	l.bin[1] += s.Paw
+	l.bin[2] += s.Flow
+	l.binN++
+	if s.T+dt-l.bin[0] >= binDT-1e-9 || s.Gap { // the next sample would start the next bin
+		n := float64(l.binN)
+		l.wave[l.waveN%waveKeep] = wavePoint{l.bin[0], l.bin[1] / n, l.bin[2] / n, l.vol}
+		l.waveN++
+		l.binN = 0
+	}
+	if l.sinceSampleAt++; l.sinceSampleAt >= 16 { // the clock is read now and then, not per sample
+		l.lastSampleAt, l.sinceSampleAt = time.Now(), 0
+	}
+}
+
+// Breath takes a breath: its row for the trends, its payload for the
+// values, the volume of the strip counted again from its start, and the
+// rise attribution of the window after it.
+func (l *Live) Breath(dev string, b *mechanics.Breath, w *mechanics.Window) {
+	// the values no flag disowns: what the trends show
+	var vals [mechanics.NumFields]float64
+	v := b.TrustedValues(vals[:0])
+	row := trendRow{b.TStart, 0}
+	for i, name := range trendFields {
+		row[i+2] = v[mechanics.FieldIndex(name)]
+	}
+	if !b.At.IsZero() {
+		row[1] = float64(b.At.UnixMilli())
+	}
+	rise := ""
+	if w != nil {
+		if r := w.Trend().Rise; r.Cause != mechanics.RiseNone {
+			rise = fmt.Sprintf("peak pressure up %.1f cmH2O against the 30 min before: %s (resistive part %+.1f, elastic part %+.1f cmH2O, by %s)",
+				r.PeakRise, r.Cause, r.ResistiveRise, r.ElasticRise, r.Method)
+		}
+	}
+	p := payload.Breath(dev, "", b)
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	l.breaths[l.breathsN%breathsKeep] = row
+	l.breathsN++
+	l.lastBreath, l.rise = p, rise
+	// the strip's volume: from this breath's start
+	v0, found := 0.0, false
+	for k := l.waveN - 1; k >= max(0, l.waveN-waveKeep); k-- {
+		pt := &l.wave[k%waveKeep]
+		if pt[0] < b.TStart {
+			break
+		}
+		if !found {
+			found = true
+		}
+		v0 = pt[3]
+	}
+	if found {
+		for k := l.waveN - 1; k >= max(0, l.waveN-waveKeep); k-- {
+			pt := &l.wave[k%waveKeep]
+			if pt[0] < b.TStart {
+				break
+			}
+			pt[3] -= v0
+		}
+		l.vol -= v0
+	}
+}
+
+// Event takes a rule transition and the raised rules after it.
+func (l *Live) Event(ev *alerts.Event, active []alerts.Active) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	l.events[l.eventsN%eventsKeep] = *ev
+	l.eventsN++
+	l.active = append(l.active[:0], active...)
+	l.activeSeq++
+}
