@@ -57,7 +57,7 @@ type mqttFlags struct {
 	clientFlags
 	broker, root, listen, brokerPasswords, stateDir string
 	brokerCert, brokerKey                           string
-	noMQTT                                          bool
+	noMQTT, wave                                    bool
 }
 
 func (m *mqttFlags) register(fs *flag.FlagSet) {
@@ -70,6 +70,7 @@ func (m *mqttFlags) register(fs *flag.FlagSet) {
 	m.clientFlags.register(fs)
 	fs.StringVar(&m.stateDir, "state-dir", "", "directory for the durable event queue (default: in memory only)")
 	fs.BoolVar(&m.noMQTT, "no-mqtt", false, "do not publish over MQTT")
+	fs.BoolVar(&m.wave, "wave-topic", false, "also publish the waveform at 25 Hz on <root>/<device>/wave, a chunk a second (QoS 0)")
 }
 
 // apply lays the flags over the file's settings.
@@ -83,6 +84,7 @@ func (m *mqttFlags) apply(c *config.MQTT, e *config.Embedded, stateDir *string) 
 	setFlag(&e.KeyFile, m.brokerKey)
 	setFlag(stateDir, m.stateDir)
 	c.Off = c.Off || m.noMQTT
+	c.Wave = c.Wave || m.wave
 }
 
 // mqttSession is the broker (embedded or not) and the publishers of one

@@ -307,6 +307,9 @@ func runDevices(ctx context.Context, runs []deviceRun, o setup) error {
 				samples = edfrec.New(rf, dlog)
 				sinks, sampleSinks = append(sinks, samples), append(sampleSinks, samples)
 			}
+			if pub != nil && sess.cfg.Wave {
+				sampleSinks = append(sampleSinks, pub.WaveSink())
+			}
 			if ws != nil {
 				wd := &web.Device{ID: r.id, Status: ctl.Status, Events: &web.EventCounts{}, Live: web.NewLive(), Ack: ctl.Ack}
 				sinks, sampleSinks = append(sinks, wd.Live), append(sampleSinks, wd.Live)

@@ -74,6 +74,7 @@ type Dict struct {
 	Active    []Entry `json:"active"` // each element of active.active
 	Status    []Entry `json:"status"`
 	Counters  []Entry `json:"counters"` // status.counters
+	Wave      []Entry `json:"wave"`     // the opt-in waveform topic
 }
 
 // Dictionary returns the data dictionary of this version of breathd.
@@ -83,7 +84,7 @@ func Dictionary(version string) Dict {
 		Breath:    BreathKeys(), CSV: CSVColumns(),
 		Trend: entriesOf(trendPayload{}), TrendStat: entriesOf(statPayload{}),
 		Event: entriesOf(eventPayload{}), Active: entriesOf(activePayload{}),
-		Status: entriesOf(statusPayload{}), Counters: counterEntries}
+		Status: entriesOf(statusPayload{}), Counters: counterEntries, Wave: entriesOf(wavePayload{})}
 	for name, meaning := range mechanics.FlagInfo() {
 		d.Flags = append(d.Flags, Entry{Name: name, Type: "string", Meaning: meaning})
 	}

@@ -76,6 +76,7 @@ func TestDictionaryCoversEveryField(t *testing.T) {
 		counters = append(counters, k)
 	}
 	same("status counters", counters, names(d.Counters))
+	same("wave", keys(Wave("bed1", "r1", 1.5, 25, []float64{5}, []float64{30})), names(d.Wave))
 	names(d.Active)
 	names(d.TrendStat)
 

@@ -235,6 +235,27 @@ type statusPayload struct {
 	Counters map[string]any `json:"counters" doc:"|the device's counters (see counters)"`
 }
 
+// wavePayload is a second of the downsampled waveform.
+type wavePayload struct {
+	V      int    `json:"v" doc:"|payload version"`
+	Device string `json:"device" doc:"|device id"`
+	Run    string `json:"run" doc:"|random id of this breathd run"`
+	T0     Num    `json:"t0" doc:"s|stream time of the first point"`
+	Hz     int    `json:"hz" doc:"Hz|points per second (40 ms means of the samples)"`
+	Paw    []Num  `json:"paw" doc:"cm[H2O]|airway pressure, a point every 1/hz s"`
+	Flow   []Num  `json:"flow" doc:"L/min|flow into the patient, a point every 1/hz s"`
+}
+
+// Wave encodes points of the waveform, from stream time t0 at hz.
+func Wave(device, run string, t0 float64, hz int, paw, flow []float64) []byte {
+	p := wavePayload{V: Version, Device: device, Run: run, T0: Num(t0), Hz: hz, Paw: make([]Num, len(paw)), Flow: make([]Num, len(flow))}
+	for i := range paw {
+		p.Paw[i], p.Flow[i] = Num(paw[i]), Num(flow[i])
+	}
+	out, _ := json.Marshal(p)
+	return out
+}
+
 // Will is the status a broker publishes when the device's publisher is
 // lost: the state, the reason and the device, nothing that would be stale
 // by then (no counters, no time).

@@ -23,6 +23,7 @@ import (
 	"breathd/alerts"
 	"breathd/mechanics"
 	"breathd/stream"
+	"breathd/stream/lines"
 	"breathd/stream/payload"
 
 	mqtt "github.com/eclipse/paho.mqtt.golang"
@@ -91,7 +92,7 @@ type Publisher struct {
 	cfg     Config
 	client  mqtt.Client
 	sp      *spool
-	topics  struct{ breath, trend, event, active, status, meta, ack string }
+	topics  struct{ breath, trend, event, active, status, meta, wave, ack string }
 	metaDue atomic.Bool // the meta topic is to be (re)published
 
 	q0      chan record
@@ -181,7 +182,7 @@ func New(cfg Config) (*Publisher, error) {
 	p.src = payload.Source{Run: run, Host: host, Since: time.Now(), Version: cfg.Version}
 	base := cfg.Root + "/" + cfg.Device + "/"
 	p.topics.breath, p.topics.trend, p.topics.event = base+"breath", base+"trend", base+"event"
-	p.topics.meta = base + "meta"
+	p.topics.meta, p.topics.wave = base+"meta", base+"wave"
 	p.topics.active, p.topics.status, p.topics.ack = base+"active", base+"status", base+"ack"
 
 	p.options(opts)
@@ -541,6 +542,37 @@ out:
 		err = errors.Join(err, fmt.Errorf("%d queued messages not delivered and lost: there is no state directory (set state_dir or --state-dir to keep them)", left))
 	}
 	return err
+}
+
+// WaveSink is the opt-in waveform topic: the stream downsampled to
+// stream.WaveHz, a chunk a second on <root>/<device>/wave, QoS 0, not
+// retained; dropped and counted like breath records when the broker is
+// away. Give it to the device loop as its SampleSink.
+func (p *Publisher) WaveSink() stream.SampleSink {
+	return &waveSink{p: p, paw: make([]float64, 0, stream.WaveHz), flow: make([]float64, 0, stream.WaveHz)}
+}
+
+type waveSink struct {
+	p         *Publisher
+	d         stream.Downsample
+	t0        float64
+	paw, flow []float64
+}
+
+// Sample takes a sample; a chunk is encoded once a second, not per sample.
+func (w *waveSink) Sample(s *lines.Sample, _ stream.Timing) {
+	t, paw, flow, ok := w.d.Add(s)
+	if !ok {
+		return
+	}
+	if len(w.paw) == 0 {
+		w.t0 = t
+	}
+	w.paw, w.flow = append(w.paw, paw), append(w.flow, flow)
+	if len(w.paw) == stream.WaveHz || s.Gap {
+		w.p.offer(record{topic: w.p.topics.wave, payload: payload.Wave(w.p.cfg.Device, w.p.src.Run, w.t0, stream.WaveHz, w.paw, w.flow)})
+		w.paw, w.flow = w.paw[:0], w.flow[:0]
+	}
 }
 
 // NewRun makes a random run id: 8 hex digits.

@@ -7,6 +7,7 @@ import (
 	"encoding/hex"
 	"encoding/json"
 	"fmt"
+	"io"
 	"net"
 	"net/url"
 	"os"
@@ -592,4 +593,47 @@ func TestRepeatedAckCountedOnce(t *testing.T) {
 	if c := p.Counters(); c.Acks != 1 || c.AcksRefused != 0 {
 		t.Errorf("acks %d, refused %d after the same ack twice", c.Acks, c.AcksRefused)
 	}
+}
+
+// TestWaveTopic: with the wave sink, a minute of a 100 Hz stream becomes
+// sixty chunks of 25 points a second on <root>/<device>/wave, QoS 0, not
+// retained, each point the mean of four samples (common practice, no
+// source: a display's decimation by block means).
+func TestWaveTopic(t *testing.T) {
+	b := startTestBroker(t)
+	sub, subc := subscribe(t, b.URL(), "breathd/bed8/wave", true, "wave-sub")
+	defer subc.Disconnect(0)
+	ctl := &stream.Control{}
+	pub, err := New(Config{Dial: publisherDial(b), Device: "bed8", Status: ctl.Status, Log: zerolog.Nop()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	in := &strings.Builder{}
+	in.WriteString("t,paw,flow\n")
+	for i := range 6000 { // 60 s at 100 Hz: pressure steps up by 1 every 40 ms
+		fmt.Fprintf(in, "%.2f,%d,%d\n", float64(i)/100, i/4%30, 10)
+	}
+	if _, err := stream.Run(context.Background(), io.NopCloser(strings.NewReader(in.String())),
+		stream.Config{Device: "bed8", Sink: pub, Samples: pub.WaveSink(), Control: ctl}); err != nil {
+		t.Fatal(err)
+	}
+	waitUntil(t, "sixty chunks", func() bool { return sub.count("breathd/bed8/wave") >= 59 })
+	var w struct {
+		V      int
+		Device string
+		T0     float64
+		Hz     int
+		Paw    []float64
+		Flow   []float64
+	}
+	var m mqtt.Message
+	for k := range sub.count("breathd/bed8/wave") { // QoS 0 need not keep the order
+		if m = sub.nth("breathd/bed8/wave", k); json.Unmarshal(m.Payload(), &w) == nil && w.T0 == 1 {
+			break
+		}
+	}
+	if m.Retained() || m.Qos() != 0 || w.Device != "bed8" || w.Hz != 25 || w.T0 != 1 || len(w.Paw) != 25 || w.Paw[0] != 25 || w.Paw[4] != 29 || w.Paw[5] != 0 || w.Flow[3] != 10 {
+		t.Errorf("chunk 1 (retained %v, QoS %d): %s", m.Retained(), m.Qos(), m.Payload())
+	}
+	pub.Close(context.Background())
 }

@@ -15,11 +15,10 @@ import (
 
 // The page's data, per device, in bounded rings allocated once.
 const (
-	waveHz      = 25            // the strip's points per second
+	waveHz      = stream.WaveHz // the strip's points per second
 	waveKeep    = 60 * waveHz   // a minute of them
 	breathsKeep = 24 * 60 * 40  // 24 h at up to 40 breaths a minute
 	eventsKeep  = 256           // the latest rule transitions
-	binDT       = 1.0 / waveHz  // s
 	noWave      = math.MaxInt64 // a cursor before any point
 )
 
@@ -45,8 +44,7 @@ type Live struct {
 	// the strip
 	wave          [waveKeep]wavePoint
 	waveN         int64 // points ever made
-	bin           wavePoint
-	binN          int
+	bins          stream.Downsample
 	vol, prevT    float64
 	prevFlow      float64
 	lastSampleAt  time.Time
@@ -68,7 +66,8 @@ func NewLive() *Live {
 }
 
 // Sample takes one decoded sample (stream.SampleSink): 40 ms means of
-// pressure and flow, the volume integrated at the full rate. It does not
+// pressure and flow (stream.Downsample), the volume integrated at the full
+// rate. It does not
 // allocate.
 func (l *Live) Sample(s *lines.Sample, _ stream.Timing) {
 	l.mu.Lock()
@@ -79,17 +78,9 @@ func (l *Live) Sample(s *lines.Sample, _ stream.Timing) {
 		l.vol += (l.prevFlow + s.Flow) / 2 / 60 * dt * 1000
 	}
 	l.prevT, l.prevFlow = s.T, s.Flow
-	if l.binN == 0 {
-		l.bin = wavePoint{s.T, 0, 0, 0}
-	}
-	l.bin[1] += s.Paw
-	l.bin[2] += s.Flow
-	l.binN++
-	if s.T+dt-l.bin[0] >= binDT-1e-9 || s.Gap { // the next sample would start the next bin
-		n := float64(l.binN)
-		l.wave[l.waveN%waveKeep] = wavePoint{l.bin[0], l.bin[1] / n, l.bin[2] / n, l.vol}
+	if t, paw, flow, ok := l.bins.Add(s); ok {
+		l.wave[l.waveN%waveKeep] = wavePoint{t, paw, flow, l.vol}
 		l.waveN++
-		l.binN = 0
 	}
 	if l.sinceSampleAt++; l.sinceSampleAt >= 16 { // the clock is read now and then, not per sample
 		l.lastSampleAt, l.sinceSampleAt = time.Now(), 0

@@ -257,6 +257,7 @@ type MQTT struct {
 	CertFile     string `yaml:"cert_file"`
 	KeyFile      string `yaml:"key_file"`
 	BreathQoS    int    `yaml:"breath_qos"` // 0 (default) or 1
+	Wave         bool   `yaml:"wave"`       // also publish the waveform at 25 Hz on <root>/<device>/wave
 	Off          bool   `yaml:"off"`        // do not publish at all
 
 	StatusEvery time.Duration `yaml:"status_every"` // default 10s
