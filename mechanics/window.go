@@ -229,8 +229,7 @@ func (w *Window) Trend() *Trend {
 	}
 	tr.done = 0 // the field statistics follow on demand, over w.idx
 	tr.NetFlow = w.netFlow(idx)
-	tr.CSlope = w.complianceSlope()
-	tr.DPSlope = w.slope(func(p *part) float64 { return p.dp })
+	tr.CSlope, tr.DPSlope = w.slopes()
 	tr.Rise = w.attribute(w.last, idx)
 	return tr
 }
@@ -290,61 +289,63 @@ func (w *Window) netFlow(idx []int) float64 {
 	return summarize(x).Median
 }
 
-// complianceSlope uses cstat when at least three breaths of the slope's
-// span have one, else the reliable breaths' fit_c.
-func (w *Window) complianceSlope() float64 {
-	n := 0
-	w.slopeParts(func(p *part) {
-		if !math.IsNaN(p.cstat) {
-			n++
-		}
-	})
-	if n >= 3 {
-		return w.slope(func(p *part) float64 { return p.cstat })
-	}
-	return w.slope(func(p *part) float64 { return p.fitC })
+// fitLine accumulates a least-squares line of y against t (t taken from
+// an origin near the data, for precision) in one pass.
+type fitLine struct {
+	n, st, sy, stt, sty float64
+	first, last         float64
 }
 
-// slopeParts calls f with each remembered breath of the slope's span.
-func (w *Window) slopeParts(f func(*part)) {
+func (f *fitLine) add(t, y float64) {
+	if math.IsNaN(y) {
+		return
+	}
+	if f.n == 0 {
+		f.first, f.last = t, t
+	}
+	f.first, f.last = min(f.first, t), max(f.last, t)
+	f.n++
+	f.st += t
+	f.sy += y
+	f.stt += t * t
+	f.sty += t * y
+}
+
+// perHour is the slope per hour: NaN with fewer than three values or when
+// they span less than minSpan seconds.
+func (f *fitLine) perHour(minSpan float64) float64 {
+	if f.n < 3 || f.last-f.first < minSpan {
+		return nan
+	}
+	den := f.n*f.stt - f.st*f.st
+	if den <= 0 {
+		return nan
+	}
+	return (f.n*f.sty - f.st*f.sy) / den * 3600
+}
+
+// slopes fits the compliance (cstat when at least three breaths of the
+// slope's span have one, else the reliable breaths' fit_c) and driving
+// pressure slopes over the breaths of the last SlopeSpan seconds, in one
+// pass from the newest back.
+func (w *Window) slopes() (compliance, dp float64) {
 	from := w.last - w.cfg.SlopeSpan
-	for k := w.hN; k >= 1; k-- {
-		if p := &w.hist[(w.hHead-k+len(w.hist))%len(w.hist)]; p.t >= from {
-			f(p)
+	var cs, fc, d fitLine
+	for k := 1; k <= w.hN; k++ {
+		p := &w.hist[(w.hHead-k+len(w.hist))%len(w.hist)]
+		if p.t < from {
+			break // the ring is in time order
 		}
+		t := p.t - w.last // an origin at the window's end: small numbers
+		cs.add(t, p.cstat)
+		fc.add(t, p.fitC)
+		d.add(t, p.dp)
 	}
-}
-
-// slope is the least-squares slope per hour of a breath value (NaN: left
-// out) against the breath's start time, over the slope's span; NaN with
-// fewer than three values or when they span less than SlopeMin.
-func (w *Window) slope(value func(*part) float64) float64 {
-	var st, sy, n float64
-	first, last := math.Inf(1), math.Inf(-1)
-	w.slopeParts(func(p *part) {
-		if v := value(p); !math.IsNaN(v) {
-			st += p.t
-			sy += v
-			n++
-			first, last = min(first, p.t), max(last, p.t)
-		}
-	})
-	if n < 3 || last-first < w.cfg.SlopeMin {
-		return nan
+	compliance = fc.perHour(w.cfg.SlopeMin)
+	if cs.n >= 3 {
+		compliance = cs.perHour(w.cfg.SlopeMin)
 	}
-	mt, my := st/n, sy/n
-	var stt, sty float64
-	w.slopeParts(func(p *part) {
-		if v := value(p); !math.IsNaN(v) {
-			d := p.t - mt
-			stt += d * d
-			sty += d * (v - my)
-		}
-	})
-	if stt == 0 {
-		return nan
-	}
-	return sty / stt * 3600
+	return compliance, d.perHour(w.cfg.SlopeMin)
 }
 
 func (w *Window) remember(b *Breath) {
