@@ -474,7 +474,11 @@ func (l *loop) WallAt(t float64) time.Time { return l.wall(t, t) }
 // RateHz is the configured rate, or the measured one once the stream spans
 // 2 s (Timing).
 func (l *loop) RateHz() float64 {
-	if r := l.dec.Format().RateHz; r > 0 {
+	f := l.cfg.Format
+	if l.ahead == nil {
+		f = l.dec.Format() // as completed by a recording's directive (decoding ahead, the decoder is its goroutine's)
+	}
+	if r := f.RateHz; r > 0 {
 		return r
 	}
 	if c := l.counts(); c.Span() >= 2 {

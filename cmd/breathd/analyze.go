@@ -20,6 +20,7 @@ import (
 	"breathd/device"
 	"breathd/mechanics"
 	"breathd/stream"
+	"breathd/stream/edfrec"
 	"breathd/stream/lines"
 	"breathd/stream/payload"
 	"breathd/stream/publish"
@@ -77,7 +78,7 @@ func cmdAnalyze(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		fmt.Fprintf(stderr, "  picture: %s\n", o.plot)
 	}
 	if o.edf != "" && runErr == nil {
-		if err := writeEDF(o.edf, o.path, o.format, st.Counts.RateHz(), pd.Breaths(), pd.Events()); err != nil {
+		if err := edfrec.Export(o.edf, o.path, o.format, st.Counts.RateHz(), pd.Breaths(), pd.Events()); err != nil {
 			return fmt.Errorf("--edf: %w", err)
 		}
 		fmt.Fprintf(stderr, "  EDF+: %s\n", o.edf)

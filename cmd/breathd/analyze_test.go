@@ -217,7 +217,8 @@ func TestAnalyzeSummaryChannels(t *testing.T) {
 }
 
 // TestFieldsVerb: breathd fields prints the dictionary the meta topic
-// carries, and the CSV's column names as analyze writes them.
+// carries, and the CSV's column names as analyze writes them. Common
+// practice, no source.
 func TestFieldsVerb(t *testing.T) {
 	code, out, errs := runCLI(t, "fields", "--json")
 	var d payload.Dict

@@ -70,7 +70,9 @@ print(json.dumps({"sfreq": float(r.info["sfreq"]), "channels": r.ch_names, "n": 
 }
 
 // TestReplayRecordsEDF: replay --record DIR --record-edf leaves an EDF+
-// file beside the raw one, with the stream's breaths annotated.
+// file beside the raw one, with the stream's breaths annotated, read back
+// by the package's reader (held to the format by TestRoundTrip and to
+// MNE-Python by TestAnalyzeEDF).
 func TestReplayRecordsEDF(t *testing.T) {
 	dir := t.TempDir()
 	if code, _, errs := runCLI(t, "replay", "--no-mqtt", "--speed", "max", "--record", dir, "--record-edf", "testdata/demo.txt.gz"); code != 0 {

@@ -14,7 +14,9 @@ import (
 // by Debian's python3 with pandas and paho-mqtt against a replay on the
 // embedded broker, builds its DataFrame from the meta topic's dictionary
 // with no numeric column left as objects. Skipped with a message when
-// those are absent; required in CI (BREATHD_REQUIRE_PYTHON=1).
+// those are absent; required in CI (BREATHD_REQUIRE_PYTHON=1). The
+// references are pandas and paho-mqtt themselves; common practice, no
+// source.
 func TestPythonSubscriberExample(t *testing.T) {
 	t.Parallel() // processes of their own, on their own ports
 	py := "/usr/bin/python3"

@@ -52,7 +52,8 @@ func TestJournalPrefixes(t *testing.T) {
 
 // TestServiceLogging: run under a journal stream logs a start line and the
 // final counters at a clean stop, each with its priority, and prints no
-// breath rows on a stdout that is not a terminal.
+// breath rows on a stdout that is not a terminal. Common practice, no
+// source.
 func TestServiceLogging(t *testing.T) {
 	dir := t.TempDir()
 	conf := filepath.Join(dir, "bed.yaml")

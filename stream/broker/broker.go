@@ -225,7 +225,7 @@ type user struct {
 
 // readPasswordFile reads "user:password" and "ack user:password" lines. An
 // empty password is an error.
-func readPasswordFile(path string) (map[string]user, error) {
+func readPasswordFile(path string) (Users, error) {
 	f, err := os.Open(path)
 	if err != nil {
 		return nil, fmt.Errorf("broker password file: %w", err)
@@ -269,7 +269,7 @@ func readPasswordFile(path string) (map[string]user, error) {
 type access struct {
 	mochi.HookBase
 	root        string
-	users       map[string]user
+	users       Users
 	anonymous   bool
 	secret      string
 	retainedMax int
@@ -305,8 +305,7 @@ func (a *access) OnConnectAuthenticate(cl *mochi.Client, pk packets.Packet) bool
 	if name == "" {
 		return a.anonymous && len(pass) == 0
 	}
-	u, ok := a.users[name]
-	return ok && subtle.ConstantTimeCompare(pass, u.password) == 1
+	return a.users.Check(name, string(pass))
 }
 
 // OnACLCheck lets everyone admitted read, breathd's publisher write
@@ -319,7 +318,7 @@ func (a *access) OnACLCheck(cl *mochi.Client, topic string, write bool) bool {
 	if !write {
 		return true
 	}
-	return a.users[name].ack && a.isAckTopic(topic)
+	return a.users.CanAck(name) && a.isAckTopic(topic)
 }
 
 var ackTopic = regexp.MustCompile(`^(.+)/[A-Za-z0-9_.-]{1,64}/ack$`)

@@ -3,7 +3,6 @@
 package edfrec
 
 import (
-	"fmt"
 	"math"
 	"strings"
 	"sync"
@@ -21,14 +20,10 @@ import (
 // of the file being written.
 type RawFile interface{ File() string }
 
-// The live EDF+ signals: airway pressure and flow as decoded, 16-bit steps
-// of 0.003 cmH2O and 0.018 L/min, far below the sensors' noise. (The
-// volume since each breath's start, which analyze --edf adds, needs the
-// breath's start before its samples are written.)
-var liveSignals = []edf.Signal{
-	{Label: "Paw", Unit: "cmH2O", Min: -30, Max: 150, Prefilter: "as the ventilator sent it"},
-	{Label: "Flow", Unit: "L/min", Min: -600, Max: 600, Prefilter: "as the ventilator sent it; into the patient > 0"},
-}
+// The live copy's signals: airway pressure and flow as decoded. (The
+// volume since each breath's start, which Export adds, needs the breath's
+// start before its samples are written.)
+var liveSignals = []edf.Signal{Paw, Flow}
 
 // Recording writes the decoded samples beside the raw recording as EDF+, a
 // file per raw file (name.txt → name.edf), with an annotation at each
@@ -122,7 +117,7 @@ func (e *Recording) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
 	e.mu.Lock()
 	defer e.mu.Unlock()
 	if e.w != nil {
-		e.w.Annotate(edf.Annotation{Onset: b.TStart - e.t0, Text: fmt.Sprintf("breath %d", b.Seq)})
+		e.w.Annotate(edf.Annotation{Onset: b.TStart - e.t0, Text: breathNote(b)})
 	}
 }
 
@@ -131,6 +126,6 @@ func (e *Recording) Event(ev *alerts.Event, _ []alerts.Active) {
 	e.mu.Lock()
 	defer e.mu.Unlock()
 	if e.w != nil {
-		e.w.Annotate(edf.Annotation{Onset: ev.T - e.t0, Text: ev.Rule + " " + string(ev.Transition)})
+		e.w.Annotate(edf.Annotation{Onset: ev.T - e.t0, Text: eventNote(ev)})
 	}
 }

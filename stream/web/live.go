@@ -75,7 +75,7 @@ func (l *Live) Sample(s *lines.Sample, _ stream.Timing) {
 	dt := 0.0
 	if !math.IsNaN(l.prevT) && !s.Gap {
 		dt = s.T - l.prevT
-		l.vol += (l.prevFlow + s.Flow) / 2 / 60 * dt * 1000
+		l.vol += stream.FlowVolume(l.prevFlow, s.Flow, dt)
 	}
 	l.prevT, l.prevFlow = s.T, s.Flow
 	if t, paw, flow, ok := l.bins.Add(s); ok {
@@ -114,25 +114,16 @@ func (l *Live) Breath(dev string, b *mechanics.Breath, w *mechanics.Window) {
 	l.breaths[l.breathsN%breathsKeep] = row
 	l.breathsN++
 	l.lastBreath, l.rise = p, rise
-	// the strip's volume: from this breath's start
-	v0, found := 0.0, false
-	for k := l.waveN - 1; k >= max(0, l.waveN-waveKeep); k-- {
-		pt := &l.wave[k%waveKeep]
-		if pt[0] < b.TStart {
-			break
-		}
-		if !found {
-			found = true
-		}
-		v0 = pt[3]
+	// the strip's volume: from this breath's start, which the breath's
+	// detection comes after
+	first := l.waveN
+	for first > max(0, l.waveN-waveKeep) && l.wave[(first-1)%waveKeep][0] >= b.TStart {
+		first--
 	}
-	if found {
-		for k := l.waveN - 1; k >= max(0, l.waveN-waveKeep); k-- {
-			pt := &l.wave[k%waveKeep]
-			if pt[0] < b.TStart {
-				break
-			}
-			pt[3] -= v0
+	if first < l.waveN {
+		v0 := l.wave[first%waveKeep][3]
+		for k := first; k < l.waveN; k++ {
+			l.wave[k%waveKeep][3] -= v0
 		}
 		l.vol -= v0
 	}

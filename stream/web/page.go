@@ -87,7 +87,6 @@ func (s *Server) ack(w http.ResponseWriter, r *http.Request) {
 // cursor is what one page has been sent of a device.
 type cursor struct {
 	wave, breaths, events, active int64
-	last                          []byte
 	rise                          string
 }
 
@@ -152,6 +151,10 @@ func (s *Server) sendNew(send func(string, any) error, d *Device, c *cursor) err
 		return nil
 	}
 	l.mu.Lock()
+	var last []byte // the latest breath's payload, when a breath came since
+	if c.breaths < l.breathsN {
+		last = l.lastBreath
+	}
 	var wave, breaths [][]jnum
 	for k := max(c.wave, l.waveN-waveKeep); k < l.waveN; k++ {
 		wave = append(wave, row(l.wave[k%waveKeep][:]))
@@ -171,10 +174,6 @@ func (s *Server) sendNew(send func(string, any) error, d *Device, c *cursor) err
 	if activeNew {
 		active = append([]alerts.Active(nil), l.active...)
 		c.active = l.activeSeq
-	}
-	var last []byte
-	if len(l.lastBreath) > 0 && &l.lastBreath[0] != firstByte(c.last) {
-		last, c.last = l.lastBreath, l.lastBreath
 	}
 	rise := l.rise
 	riseNew := rise != c.rise
@@ -217,13 +216,6 @@ func (s *Server) sendNew(send func(string, any) error, d *Device, c *cursor) err
 		}
 	}
 	return nil
-}
-
-func firstByte(b []byte) *byte {
-	if len(b) == 0 {
-		return nil
-	}
-	return &b[0]
 }
 
 func stampOrNil(t time.Time) any {

@@ -8,7 +8,6 @@ import (
 	"errors"
 	"fmt"
 	"image/color"
-	"io"
 	"math"
 	"os"
 	"path/filepath"
@@ -18,8 +17,8 @@ import (
 	"time"
 
 	"breathd/alerts"
-	"breathd/device"
 	"breathd/mechanics"
+	"breathd/stream"
 	"breathd/stream/lines"
 
 	gonum "gonum.org/v1/plot"
@@ -91,49 +90,19 @@ type strip struct {
 }
 
 // readStrip decodes the samples in [from, from+span) of the recording
-// again, integrating volume from each detected breath start.
+// again, with the volume since each detected breath's start.
 func readStrip(path string, f lines.Format, from, span float64, breaths []mechanics.Breath) (*strip, error) {
-	src, err := device.OpenFile(path, 0)
-	if err != nil {
-		return nil, err
-	}
-	defer src.Close()
-	dec, err := lines.NewDecoder(src, f)
-	if err != nil {
-		return nil, err
-	}
 	st := &strip{}
-	var s lines.Sample
-	v, prevT, prevF := 0.0, math.NaN(), 0.0
-	bi := 0
-	for {
-		err := dec.Decode(&s)
-		if errors.Is(err, io.EOF) || (err == nil && s.T >= from+span) {
-			break
+	err := stream.Reread(path, f, breaths, func(s *lines.Sample, v float64) bool {
+		if s.T >= from+span {
+			return false
 		}
-		var le *lines.LineError
-		if errors.As(err, &le) {
-			continue
+		if s.T >= from {
+			st.t, st.paw, st.flow, st.vol = append(st.t, s.T), append(st.paw, s.Paw), append(st.flow, s.Flow), append(st.vol, v)
 		}
-		if err != nil {
-			return nil, err
-		}
-		for bi < len(breaths) && breaths[bi].TStart <= s.T {
-			if math.Abs(breaths[bi].TStart-s.T) < 1e-9 {
-				v = 0
-			}
-			bi++
-		}
-		if !math.IsNaN(prevT) {
-			v += (prevF + s.Flow) / 2 / 60 * (s.T - prevT) * 1000
-		}
-		prevT, prevF = s.T, s.Flow
-		if s.T < from {
-			continue
-		}
-		st.t, st.paw, st.flow, st.vol = append(st.t, s.T), append(st.paw, s.Paw), append(st.flow, s.Flow), append(st.vol, v)
-	}
-	return st, nil
+		return true
+	})
+	return st, err
 }
 
 // peakTime is the time of the highest pressure sample in [a, b].
