@@ -51,6 +51,28 @@ type Settings struct {
 	EffortTime float64 `yaml:"effort_time"`
 	Leak       float64 `yaml:"leak"` // leak flow per airway pressure, L/min per cmH2O
 
+	// Efforts that are not all alike, and a ventilator that does not
+	// always follow them (each 0: off). Shares are of efforts or breaths,
+	// drawn at random from the scenario's seed.
+	EffortJitter float64 `yaml:"effort_jitter"` // each effort's period varies by up to ± this share
+	WeakShare    float64 `yaml:"weak_share"`    // share of efforts of only weak_p cmH2O …
+	WeakP        float64 `yaml:"weak_p"`        // … too weak to trigger from expiration
+	LongShare    float64 `yaml:"long_share"`    // share of efforts that last long_time s (the next waits half a second after) …
+	LongTime     float64 `yaml:"long_time"`     // … and pull on after a pressure-support breath cycles
+	LongP        float64 `yaml:"long_p"`        // their peak, cmH2O (0: effort_p)
+	// ps: a share of breaths cycles at short_ti s whatever the flow, and a
+	// share not before long_ti s.
+	MaxTi       float64 `yaml:"max_ti"` // ps: cycle by time after this long, s; default 3
+	ShortCycles float64 `yaml:"short_cycles"`
+	ShortTi     float64 `yaml:"short_ti"`
+	LongCycles  float64 `yaml:"long_cycles"`
+	LongTi      float64 `yaml:"long_ti"`
+	// vc, pc: a share of machine-started breaths entrains an effort
+	// (effort_p, effort_time) that starts entrain_delay s after the
+	// breath's start.
+	EntrainShare float64 `yaml:"entrain_share"`
+	EntrainDelay float64 `yaml:"entrain_delay"`
+
 	// Beyond the single compartment (all 0: the ideal lung, integrated
 	// exactly). R above is then the central airway's resistance.
 	R2     float64 `yaml:"r2"`      // a second compartment's own resistance, cmH2O·s/L (with c2)
@@ -94,6 +116,10 @@ func (s *Settings) numeric() map[string]*float64 {
 		"r2": &s.R2, "c2": &s.C2, "e2": &s.E2, "k2": &s.K2, "visco_c": &s.ViscoC, "visco_r": &s.ViscoR,
 		"cardiac_p": &s.CardiacP, "cardiac_rate": &s.CardiacRate, "circuit_c": &s.CircuitC,
 		"valve_time": &s.ValveTime, "valve_r": &s.ValveR,
+		"effort_jitter": &s.EffortJitter, "weak_share": &s.WeakShare, "weak_p": &s.WeakP,
+		"long_share": &s.LongShare, "long_time": &s.LongTime, "long_p": &s.LongP,
+		"max_ti": &s.MaxTi, "short_cycles": &s.ShortCycles, "short_ti": &s.ShortTi, "long_cycles": &s.LongCycles, "long_ti": &s.LongTi,
+		"entrain_share": &s.EntrainShare, "entrain_delay": &s.EntrainDelay,
 	}
 }
 
@@ -153,6 +179,10 @@ func (s *Settings) Validate() error {
 		{"visco_c", s.ViscoC, 0, 1000}, {"visco_r", s.ViscoR, 0, 200}, {"cardiac_p", s.CardiacP, 0, 5},
 		{"cardiac_rate", s.CardiacRate, 0, 200}, {"circuit_c", s.CircuitC, 0, 10},
 		{"valve_time", s.ValveTime, 0, 0.1}, {"valve_r", s.ValveR, 0, 50},
+		{"effort_jitter", s.EffortJitter, 0, 0.5}, {"weak_share", s.WeakShare, 0, 1}, {"weak_p", s.WeakP, 0, 40},
+		{"long_share", s.LongShare, 0, 1}, {"long_time", s.LongTime, 0, 3}, {"long_p", s.LongP, 0, 40},
+		{"max_ti", s.MaxTi, 0, 3}, {"short_cycles", s.ShortCycles, 0, 0.5}, {"short_ti", s.ShortTi, 0, 3}, {"long_cycles", s.LongCycles, 0, 0.5},
+		{"long_ti", s.LongTi, 0, 2.9}, {"entrain_share", s.EntrainShare, 0, 1}, {"entrain_delay", s.EntrainDelay, 0, 3},
 	}
 	for _, c := range checks {
 		if math.IsNaN(c.v) || c.v < c.min || c.v > c.max {
@@ -187,8 +217,23 @@ func (s *Settings) Validate() error {
 	if s.EffortRate > 0 && (s.EffortP <= 0 || s.EffortTime <= 0) {
 		return keyErr("effort_p", errors.New("effort_rate needs effort_p and effort_time"))
 	}
-	if s.EffortRate > 0 && s.EffortTime >= 60/s.EffortRate {
-		return keyErr("effort_time", fmt.Errorf("%g s must be shorter than the effort period %.2f s", s.EffortTime, 60/s.EffortRate))
+	if p := 60 / s.EffortRate * (1 - s.EffortJitter); s.EffortRate > 0 && s.EffortTime >= p {
+		return keyErr("effort_time", fmt.Errorf("%g s must be shorter than the shortest effort period %.2f s", s.EffortTime, p))
+	}
+	if s.WeakShare > 0 && s.WeakP <= 0 {
+		return keyErr("weak_p", errors.New("weak_share needs weak_p"))
+	}
+	if s.LongShare > 0 && s.LongTime <= 0 {
+		return keyErr("long_time", errors.New("long_share needs long_time"))
+	}
+	if s.ShortCycles > 0 && s.ShortTi <= s.Rise {
+		return keyErr("short_ti", fmt.Errorf("%g s must be longer than the rise %g s", s.ShortTi, s.Rise))
+	}
+	if s.LongCycles > 0 && s.LongTi <= 0 {
+		return keyErr("long_ti", errors.New("long_cycles needs long_ti"))
+	}
+	if s.EntrainShare > 0 && (s.EffortP <= 0 || s.EffortTime <= 0) {
+		return keyErr("entrain_share", errors.New("entrained efforts need effort_p and effort_time"))
 	}
 	return nil
 }
@@ -237,7 +282,8 @@ type Scenario struct {
 }
 
 // Defaults fills unset fields: 100 Hz, 10 minutes, 2 printed digits, a
-// 25 % cycle, a 2 L/min trigger and a 60 ms trigger delay.
+// 25 % cycle, a 2 L/min trigger, a 60 ms trigger delay and a 3 s longest
+// pressure-support inspiration.
 func (sc *Scenario) Defaults() {
 	if sc.RateHz == 0 {
 		sc.RateHz = 100
@@ -256,6 +302,9 @@ func (sc *Scenario) Defaults() {
 	}
 	if sc.Settings.TriggerDelay == 0 {
 		sc.Settings.TriggerDelay = 0.06
+	}
+	if sc.Settings.MaxTi == 0 {
+		sc.Settings.MaxTi = 3
 	}
 	if sc.Settings.Flow == "" {
 		sc.Settings.Flow = "constant"

@@ -35,8 +35,17 @@ type Truth struct {
 	Plateau   float64 // noise-free airway pressure at the end of the pause, cmH2O; NaN without a pause
 	DP        float64 // driving pressure VT/CStatic, cmH2O
 	RR        float64 // 60/(TEnd − TStart), 1/min
+	Ti        float64 // inspiratory time: from TStart to the ventilator's cycling, s
 	Active    bool    // muscle effort during the breath
-	Triggered bool    // started by the patient's effort
+	Triggered bool    // started by the ventilator's trigger (the patient's effort, or not: AutoTrigger)
+
+	// Asynchrony, as the simulator made it happen.
+	Missed        int  // efforts that began in this breath's expiration and ended with no breath delivered
+	DoubleTrigger bool // triggered by the same effort as the breath before
+	AutoTrigger   bool // triggered with no effort under way (the heart's oscillation, say)
+	ShortCycle    bool // cycled at short_ti whatever the flow
+	LongCycle     bool // not cycled before long_ti
+	Reverse       bool // a machine-started breath that entrained an effort
 }
 
 // SimSample is one sample of the simulated stream.
@@ -93,6 +102,19 @@ type Sim struct {
 	trigAt                                             float64 // ps: when the triggered breath is delivered; 0 none
 
 	effortStart, nextEffort float64
+	// the effort under way or last: its strength, its number, whether it
+	// triggered a breath, whether it began in expiration, and the breath
+	// then in progress; the effort that triggered the last breath
+	effP, effT   float64
+	effID        int
+	effTriggered bool
+	effInExp     bool
+	effSeq       int
+	effOpen      bool
+	trigEffort   int
+	entrainAt    float64 // when an entrained effort starts; 0 none
+	cycleKind    int8    // ps: 0 by flow, 1 short, 2 long
+	erng         *rand.Rand
 
 	seq     int
 	cur     Truth
@@ -124,6 +146,7 @@ func NewSim(sc Scenario, truth func(Truth)) *Sim {
 	s.h = s.dt / nsub
 	s.end = int64(math.Round(sc.Duration.Seconds() * sc.RateHz))
 	s.rng = rand.New(rand.NewPCG(sc.Seed, sc.Seed^0x9e3779b97f4a7c15))
+	s.erng = rand.New(rand.NewPCG(sc.Seed^0x5851f42d4c957f2d, sc.Seed))
 	s.nextEffort = 1.0 // the first effort, if any, a second in
 	sn := &sc.Sensor
 	gain := func(tau float64) float64 {
@@ -231,17 +254,68 @@ func (s *Sim) noise(sigma float64) float64 {
 // pmus is the muscle pressure at t, cmH2O. Calls come with increasing t.
 func (s *Sim) pmus(t float64) float64 {
 	set := &s.set
-	if set.EffortRate <= 0 {
+	if set.EffortRate <= 0 && s.entrainAt == 0 && !s.effOpen {
 		return 0
 	}
-	for t >= s.nextEffort {
-		s.effortStart = s.nextEffort
-		s.nextEffort += 60 / set.EffortRate
+	for set.EffortRate > 0 && t >= s.nextEffort {
+		s.newEffort(s.nextEffort, true)
+		period := 60 / set.EffortRate
+		if set.EffortJitter > 0 {
+			period *= 1 + set.EffortJitter*(2*s.erng.Float64()-1)
+		}
+		s.nextEffort = max(s.nextEffort+period, s.effortStart+s.effT+0.5)
 	}
-	if d := t - s.effortStart; d >= 0 && d < set.EffortTime {
-		return set.EffortP * math.Sin(math.Pi*d/set.EffortTime)
+	if s.entrainAt > 0 && t >= s.entrainAt {
+		s.newEffort(s.entrainAt, false)
+		s.entrainAt = 0
+	}
+	d := t - s.effortStart
+	if d >= 0 && d < s.effT {
+		return s.effP * math.Sin(math.Pi*d/s.effT)
+	}
+	if s.effOpen && d >= s.effT {
+		s.closeEffort()
 	}
 	return 0
+}
+
+// newEffort begins an effort at t0: a spontaneous one (weak or long by
+// the settings' shares) or an entrained one.
+func (s *Sim) newEffort(t0 float64, spontaneous bool) {
+	set := &s.set
+	if s.effOpen {
+		s.closeEffort()
+	}
+	s.effortStart, s.effP, s.effT = t0, set.EffortP, set.EffortTime
+	if spontaneous && (set.WeakShare > 0 || set.LongShare > 0) {
+		switch u := s.erng.Float64(); {
+		case u < set.WeakShare:
+			s.effP = set.WeakP
+		case u < set.WeakShare+set.LongShare:
+			s.effT = set.LongTime
+			if set.LongP > 0 {
+				s.effP = set.LongP
+			}
+		}
+	}
+	s.effID++
+	s.effOpen, s.effTriggered = true, false
+	s.effInExp, s.effSeq = s.phase == phaseExp && s.inBr, s.seq
+}
+
+// closeEffort ends the effort under way: one that began in expiration and
+// saw no breath delivered is an ineffective effort of that breath.
+func (s *Sim) closeEffort() {
+	s.effOpen = false
+	if s.effInExp && !s.effTriggered && s.effSeq == s.seq && s.inBr {
+		s.cur.Missed++
+	}
+}
+
+// effortNow reports whether an effort is under way at t.
+func (s *Sim) effortNow(t float64) bool {
+	d := t - s.effortStart
+	return s.effOpen && d >= 0 && d < s.effT
 }
 
 // airway returns airway pressure (cmH2O) and lung flow (L/s) at t.
@@ -359,7 +433,12 @@ func (s *Sim) transitions(ts float64) {
 		case ModePS:
 			_, vdot := s.airway(ts, s.pmus(ts))
 			s.peakFlow = math.Max(s.peakFlow, vdot)
-			if (ts-s.bStart > set.Rise && vdot < set.Cycle*s.peakFlow) || ts-s.bStart > 3 {
+			el := ts - s.bStart
+			switch {
+			case s.cycleKind != 2 && el >= set.MaxTi-eps, el > 3,
+				s.cycleKind == 1 && el >= set.ShortTi-eps,
+				s.cycleKind == 2 && el >= set.LongTi-eps,
+				s.cycleKind == 0 && el > set.Rise && vdot < set.Cycle*s.peakFlow:
 				s.toExp(ts)
 			}
 		}
@@ -398,6 +477,9 @@ func (s *Sim) toExp(ts float64) {
 		s.pEnd = f.pao
 	}
 	s.phase, s.expStart, s.trigAt, s.prevVdot = phaseExp, ts, 0, -1
+	if s.inBr {
+		s.cur.Ti = ts - s.cur.TStart
+	}
 }
 
 // startBreath ends the breath in progress and begins one at ts with the
@@ -409,6 +491,10 @@ func (s *Sim) startBreath(ts float64, triggered bool) {
 	boundary, v0 := ts, s.v
 	if triggered {
 		boundary, v0 = s.upT, s.upV
+	}
+	effort := triggered && s.effortNow(ts)
+	if effort {
+		s.effTriggered = true
 	}
 	if s.inBr && s.truth != nil {
 		c := s.cur
@@ -482,4 +568,37 @@ func (s *Sim) startBreath(ts float64, triggered bool) {
 	}
 	s.cur = Truth{Seq: s.seq, TStart: boundary, Mode: set.Mode, R: set.R, C: set.C, PEEP: set.PEEP,
 		IPEEP: ipeep, Peak: math.Inf(-1), Plateau: math.NaN(), Triggered: triggered, Active: triggered}
+	s.asynchrony(ts, triggered, effort)
+}
+
+// asynchrony labels the breath just begun at ts and draws its cycling
+// and any entrained effort (no draws when the settings ask for none, so
+// that other scenarios' streams do not change).
+func (s *Sim) asynchrony(ts float64, triggered, effort bool) {
+	set := &s.set
+	c := &s.cur
+	switch {
+	case triggered && effort:
+		c.DoubleTrigger = s.trigEffort == s.effID
+		s.trigEffort = s.effID
+	case triggered:
+		c.AutoTrigger = true
+		c.Active = false
+		s.trigEffort = 0
+	default:
+		s.trigEffort = 0
+	}
+	s.cycleKind = 0
+	if set.Mode == ModePS && set.ShortCycles+set.LongCycles > 0 {
+		switch u := s.erng.Float64(); {
+		case u < set.ShortCycles:
+			s.cycleKind, c.ShortCycle = 1, true
+		case u < set.ShortCycles+set.LongCycles:
+			s.cycleKind, c.LongCycle = 2, true
+		}
+	}
+	if !triggered && set.Mode != ModePS && set.EntrainShare > 0 && s.erng.Float64() < set.EntrainShare {
+		s.entrainAt = ts + max(set.EntrainDelay, 1e-6)
+		c.Reverse, c.Active = true, true
+	}
 }
