@@ -35,6 +35,12 @@ func Defaults() []Rule {
 		// the resistive part of the peak pressure up 5 cmH2O against the baseline (DESIGN §4 attribution)
 		{ID: "resistance_rising", Field: "rise.resistive", Compare: Above, Threshold: 5, Hysteresis: 1,
 			RaiseAfter: 5, ClearAfter: 5, Level: LevelNotice, Source: "common practice, no source"},
+		// asynchrony index over the window above 10 % (the boundary itself
+		// does not raise: "> 10 %"), held for 20 breaths: Thille et al.,
+		// Intensive Care Med 2006;32:1515; Blanch et al., Intensive Care
+		// Med 2015;41:633 (an index above 10 % went with higher mortality)
+		{ID: "asynchrony_high", Field: "asynchrony_index", Compare: Above, Threshold: 10, Hysteresis: 2,
+			RaiseAfter: 20, ClearAfter: 20, Level: LevelNotice, Source: "Thille, Intensive Care Med 2006;32:1515; Blanch, Intensive Care Med 2015;41:633"},
 
 		// technical conditions, evaluated every second
 		{ID: "no_samples", Field: "no_samples", Compare: Above, Threshold: 10, RaiseAfter: 1, ClearAfter: 1,

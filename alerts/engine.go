@@ -181,6 +181,8 @@ func rolling(st *state, tr *mechanics.Trend) float64 {
 		return tr.Rise.ResistiveRise
 	case "rise.elastic":
 		return tr.Rise.ElasticRise
+	case "asynchrony_index":
+		return tr.Asynchrony.Index()
 	}
 	return math.NaN()
 }

@@ -270,3 +270,48 @@ func TestMisspelledRuleID(t *testing.T) {
 		t.Errorf("misspelled id: %v", err)
 	}
 }
+
+// TestAsynchronyIndexBoundary: the default rule raises when the window's
+// asynchrony index is above 10 %, not at 10 % itself (Blanch et al.,
+// Intensive Care Med 2015;41:633 report "> 10 %"; some authors use
+// ≥ 10 %: the boundary is pinned here). 20 breaths, 2 of them double
+// triggers: 2/20 = 10.0 % for 40 breaths, no event; 3 or 4 of 20
+// (15–20 %): raised after the rule's 20 breaths. The index waits for 10
+// cycles in the window.
+func TestAsynchronyIndexBoundary(t *testing.T) {
+	var rule Rule
+	for _, r := range Defaults() {
+		if r.ID == "asynchrony_high" {
+			rule = r
+		}
+	}
+	if rule.Field != "asynchrony_index" || rule.Threshold != 10 || rule.Compare != Above {
+		t.Fatalf("default rule %+v: want asynchrony_index above 10", rule)
+	}
+	run := func(every int) (raisedAt int) {
+		e, err := NewEngine("bed1", "r", []Rule{rule})
+		if err != nil {
+			t.Fatal(err)
+		}
+		w, _ := mechanics.NewWindow(mechanics.WindowConfig{})
+		for i := range 60 {
+			b := mechanics.Breath{TStart: float64(i) * 4, TEnd: float64(i+1) * 4}
+			if i%every == 0 {
+				b.Asynchrony = mechanics.AsyDoubleTrigger
+			}
+			w.Add(&b)
+			for _, ev := range e.Breath(&b, w, wall) {
+				if ev.Transition == Raised {
+					return i
+				}
+			}
+		}
+		return -1
+	}
+	if at := run(10); at >= 0 { // 2 in every 20: exactly 10 %
+		t.Errorf("an index of exactly 10 %% raised the rule at breath %d", at)
+	}
+	if at := run(6); at != 28 { // 3 or 4 in 20 from the 10th breath on: 19 breaths later
+		t.Errorf("an index of 15–20 %% raised the rule at breath %d, want 28 (index from breath 9, held for 20)", at)
+	}
+}

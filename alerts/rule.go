@@ -40,7 +40,8 @@ const (
 // Rule is one threshold rule. Field names a per-breath field of
 // mechanics.Fields(), a derived one (peak_plateau_gap), a rolling one
 // (median.<field>, iqr.<field>, slope.compliance, slope.dp,
-// compliance_change, rise.peak, rise.resistive, rise.elastic) or a
+// compliance_change, rise.peak, rise.resistive, rise.elastic,
+// asynchrony_index) or a
 // technical one (no_samples, no_breaths, circuit_open, bad_lines,
 // sample_rate_off, port_lost, format_suspect).
 type Rule struct {
@@ -124,7 +125,7 @@ func fieldKind(name string) (int, error) {
 		return kindBreath, nil
 	}
 	switch name {
-	case "slope.compliance", "slope.dp", "compliance_change", "rise.peak", "rise.resistive", "rise.elastic":
+	case "slope.compliance", "slope.dp", "compliance_change", "rise.peak", "rise.resistive", "rise.elastic", "asynchrony_index":
 		return kindRolling, nil
 	}
 	if stat, f, ok := strings.Cut(name, "."); ok && (stat == "median" || stat == "iqr") && mechanics.FieldIndex(f) >= 0 {

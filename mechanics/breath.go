@@ -52,10 +52,13 @@ var flagMeanings = [numFlags]string{
 }
 
 // FlagInfo yields each flag's output word and meaning, in bit order.
-func FlagInfo() iter.Seq2[string, string] {
+func FlagInfo() iter.Seq2[string, string] { return pairs(flagWords[:], flagMeanings[:]) }
+
+// pairs yields words[i] with meanings[i], in order.
+func pairs(words, meanings []string) iter.Seq2[string, string] {
 	return func(yield func(string, string) bool) {
-		for i := range numFlags {
-			if !yield(flagWords[i], flagMeanings[i]) {
+		for i, w := range words {
+			if !yield(w, meanings[i]) {
 				return
 			}
 		}
@@ -63,15 +66,7 @@ func FlagInfo() iter.Seq2[string, string] {
 }
 
 // Words lists the flags' output words.
-func (f Flags) Words() []string {
-	var w []string
-	for i := 0; i < numFlags; i++ {
-		if f&(1<<i) != 0 {
-			w = append(w, flagWords[i])
-		}
-	}
-	return w
-}
+func (f Flags) Words() []string { return words(uint64(f), flagWords[:]) }
 
 // String joins the flags' words with spaces.
 func (f Flags) String() string { return strings.Join(f.Words(), " ") }
@@ -79,16 +74,32 @@ func (f Flags) String() string { return strings.Join(f.Words(), " ") }
 // AppendWords appends the flags' words separated by sep, without
 // allocating when b has room.
 func (f Flags) AppendWords(b []byte, sep byte) []byte {
+	return appendWords(b, uint64(f), flagWords[:], sep)
+}
+
+// words lists the words of the bits set, bit i naming table[i].
+func words(bits uint64, table []string) []string {
+	var w []string
+	for i, word := range table {
+		if bits&(1<<i) != 0 {
+			w = append(w, word)
+		}
+	}
+	return w
+}
+
+// appendWords appends the words of the bits set, separated by sep.
+func appendWords(b []byte, bits uint64, table []string, sep byte) []byte {
 	first := true
-	for i := 0; i < numFlags; i++ {
-		if f&(1<<i) == 0 {
+	for i, word := range table {
+		if bits&(1<<i) == 0 {
 			continue
 		}
 		if !first {
 			b = append(b, sep)
 		}
 		first = false
-		b = append(b, flagWords[i]...)
+		b = append(b, word...)
 	}
 	return b
 }
@@ -127,15 +138,19 @@ type Breath struct {
 	PEEPi      float64 // intrinsic PEEP from the equation of motion at end expiration, cmH2O
 	VTPBW      float64 // vti per kg of predicted body weight, mL/kg
 	EEF        float64 // end-expiratory flow, L/min
+	// IneffectiveEfforts counts the efforts in this breath's expiration
+	// that no breath followed (a number, for the field registry).
+	IneffectiveEfforts float64
 
-	Flags Flags
+	Flags      Flags
+	Asynchrony Asynchrony // patient–ventilator asynchronies in and just before the breath
 }
 
 // Values appends the numeric fields in output order (see Fields).
 func (b *Breath) Values(dst []float64) []float64 {
 	return append(dst, b.TStart, b.TEnd, b.Ti, b.Te, b.RR, b.IE, b.VTi, b.VTe, b.Leak,
 		b.PPeak, b.PPlat, b.PEEP, b.PMean, b.DP, b.Cstat, b.Cdyn, b.Rinsp,
-		b.FitR, b.FitC, b.FitP0, b.FitR2, b.Tau, b.MP, b.SI, b.E2Pct, b.PauseDecay, b.PEEPi, b.VTPBW, b.EEF)
+		b.FitR, b.FitC, b.FitP0, b.FitR2, b.Tau, b.MP, b.SI, b.E2Pct, b.PauseDecay, b.PEEPi, b.VTPBW, b.EEF, b.IneffectiveEfforts)
 }
 
 // Trusted returns a numeric field by its contract name, NaN when the

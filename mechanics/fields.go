@@ -62,6 +62,7 @@ var fields = [...]Field{
 	{"peepi", "cm[H2O]", 2, "intrinsic PEEP from the fit at end expiration", byFit},
 	{"vt_pbw", "mL/kg", 2, "vti per kg of predicted body weight", 0},
 	{"eef", "L/min", 2, "end-expiratory flow", 0},
+	{"ineffective_efforts", "1", 0, "efforts in this breath's expiration that no breath followed (see asynchrony)", 0},
 }
 
 // Fields yields the per-breath numeric fields in output order with their

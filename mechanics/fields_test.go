@@ -25,7 +25,7 @@ func TestFieldRegistry(t *testing.T) {
 			t.Errorf("field %d %q: duplicate or out of place", i, f.Name)
 		}
 		seen[f.Name] = true
-		if f.Unit == "" || f.Meaning == "" || f.Decimals < 1 {
+		if f.Unit == "" || f.Meaning == "" || f.Decimals < 0 {
 			t.Errorf("%s: unit %q, meaning %q, decimals %d", f.Name, f.Unit, f.Meaning, f.Decimals)
 		}
 		if !strings.Contains(string(readme), "`"+f.Name+"`") {

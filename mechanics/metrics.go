@@ -133,10 +133,13 @@ func (s *Segmenter) circuitAndLeak(b *Breath) {
 func (s *Segmenter) effort(b *Breath, e, j int, eefNoise float64) (peepTotal float64) {
 	c := &s.cfg
 	s.fit(b, j, e)
-	if s.nextDip || s.patientStart(e) {
+	start := s.patientStart(e)
+	if s.nextDip || start {
 		b.Flags |= FlagActiveEffort
 	}
 	s.nextDip = s.triggerDip(e, j)
+	s.asynchrony(b, e, j, start || s.nextPull)
+	s.nextPull = s.pulledIn(j)
 	s.lastPEEP = b.PEEP
 	if b.FitR2 < c.FitR2Min || math.IsNaN(b.FitR2) {
 		b.Flags |= FlagFitUnreliable

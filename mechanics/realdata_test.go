@@ -190,6 +190,7 @@ type realResult struct {
 	activePct                        float64
 	fitR                             float64
 	peeps                            []float64
+	asynchrony                       []string // breaths with asynchrony words: a passive lung has none
 }
 
 // analyzeRecording runs one recording through a segmenter and matches its
@@ -237,6 +238,11 @@ func analyzeRecording(t *testing.T, dir string, rec recording) realResult {
 		}
 	}
 	res.breaths = len(got)
+	for _, b := range got {
+		if b.Asynchrony != 0 {
+			res.asynchrony = append(res.asynchrony, fmt.Sprintf("%.2f s %s (%g ineffective)", b.TStart, b.Asynchrony, b.IneffectiveEfforts))
+		}
+	}
 	// a reference breath is expected when it and the next start lie within
 	// the recording (a breath ends at the next start); the first may be
 	// lost while detection syncs
@@ -306,7 +312,8 @@ func med(x []float64) float64 {
 // may be lost while syncing), no false breath, median ti within 0.1 s of
 // the commanded Ti (1.0 s; 1.2 s in the PEEP run, from its set point log),
 // median fit_c within 15 % of the lung's compliance,
-// active_effort on at most 5 % of this passive lung's breaths, and the
+// active_effort on at most 5 % of this passive lung's breaths, no
+// asynchrony (a test lung has no muscles: every effort found is false), and the
 // fitted resistances in the order of the settings R5 < R20 < R50.
 func TestRealRecordings(t *testing.T) {
 	dir := realDataDir(t)
@@ -323,6 +330,9 @@ func TestRealRecordings(t *testing.T) {
 		}
 		if rec.c > 0 && math.Abs(res.fitCMedian-rec.c)/rec.c > 0.15 {
 			t.Errorf("%s: median fit_c %.1f, lung %g mL/cmH2O", rec.name, res.fitCMedian, rec.c)
+		}
+		if len(res.asynchrony) > 0 {
+			t.Errorf("%s: a passive lung with asynchrony: %s", rec.name, strings.Join(res.asynchrony, "; "))
 		}
 		if res.activePct > 5 {
 			t.Errorf("%s: %.0f %% of a passive lung's breaths flagged active_effort", rec.name, res.activePct)

@@ -54,15 +54,12 @@ type Config struct {
 
 	Sex      string  // male or female, for predicted body weight; "" for none
 	HeightCm float64 // cm, with Sex
+
+	Asynchrony AsynchronyConfig // the patient–ventilator asynchrony detectors
 }
 
 // Defaults fills the unset fields.
 func (c *Config) Defaults() {
-	def := func(p *float64, v float64) {
-		if *p == 0 {
-			*p = v
-		}
-	}
 	def(&c.StartFlow, 5)
 	def(&c.EndFlow, 3)
 	def(&c.PauseFlow, 3)
@@ -82,6 +79,14 @@ func (c *Config) Defaults() {
 	def(&c.RelMin, 0.25)
 	def(&c.PauseDecayLimit, 0.5)
 	def(&c.PEEPiMin, 0.5)
+	c.Asynchrony.Defaults()
+}
+
+// def sets *p to v when it is unset (0).
+func def(p *float64, v float64) {
+	if *p == 0 {
+		*p = v
+	}
 }
 
 // Validate reports the first unusable setting.
@@ -113,7 +118,7 @@ func (c *Config) Validate() error {
 			return err
 		}
 	}
-	return nil
+	return c.Asynchrony.Validate()
 }
 
 // Drops counts breaths in progress that were dropped, by cause.
@@ -159,6 +164,8 @@ type Segmenter struct {
 	n            int
 	inspEnd      int // index of the first sample after inspiratory flow, −1 while it flows
 	expStart     int // index of the first expiratory sample
+	expLow       int // index where the pressure was released, when expiration began without outward flow; −1 otherwise
+	relAt        int // index since which the pressure has been released in inspiration, −1 for none
 	openSince    float64
 	open         bool
 	deadline     float64 // t[0] + MaxBreath in a breath, else +Inf
@@ -188,6 +195,7 @@ type Segmenter struct {
 	seq       int64
 	afterDrop bool    // the next breath follows a dropped one
 	nextDip   bool    // an effort was seen just before the breath in progress
+	nextPull  bool    // … or the patient drew gas in before it (for the asynchrony detectors)
 	lastPEEP  float64 // the previous breath's PEEP, cmH2O; NaN at first
 	drops     Drops
 	out       Breath
@@ -196,6 +204,7 @@ type Segmenter struct {
 	align     aligner   // channel delay: estimate and alignment
 	scrP      []float64 // scratch for per-breath tests, 1024 each
 	scrF      []float64
+	asy       asyState // what the asynchrony detectors keep
 }
 
 // NewSegmenter returns a segmenter for samples arriving at about rateHz
@@ -213,6 +222,7 @@ func NewSegmenter(cfg Config, rateHz float64) (*Segmenter, error) {
 		si: newSIFit(), openSince: math.NaN(), deadline: math.Inf(1), lastPEEP: math.NaN(), lastSI: math.NaN(),
 		cand: -1, sigP: math.NaN(), sigF: math.NaN(), scrP: make([]float64, 1024), scrF: make([]float64, 1024)}
 	s.align.init(cfg.FlowDelay, cfg.FlowDelayFixed, cfg.CircuitCompliance)
+	s.asy.reset()
 	if cfg.Sex != "" {
 		s.pbw, _ = PredictedBodyWeight(cfg.Sex, cfg.HeightCm)
 	}
@@ -310,7 +320,7 @@ func (s *Segmenter) dv(k int) float64 {
 func (s *Segmenter) open1(k int) {
 	lo := 0
 	if s.state == stExp {
-		lo = s.expStart + 1
+		lo = max(s.expStart, s.expLow) + 1
 	}
 	j := s.riseStart(k, lo)
 	if j < 0 {
@@ -398,6 +408,9 @@ func (s *Segmenter) onset(c, k int) int {
 	// from 0.2 s before the foot up to the steep rise (drawn stops where the
 	// pressure rises)
 	if m > c && s.drawn(max(c, s.before(m, 0.2)), half+1, s.candBase) {
+		if s.state == stExp && s.expLow >= 0 {
+			return m // the flow never turned: it stayed inward since the release
+		}
 		for c > 1 && s.flow[c-1] > 0 && (s.state != stExp || c-1 > s.expStart) {
 			c-- // back to where the flow turned inward
 		}
@@ -527,6 +540,9 @@ func (s *Segmenter) inspiration(k int, paw, flow float64) {
 	case s.inspEnd < 0 && flow < c.EndFlow && s.t[k] >= s.inspMin:
 		s.inspEnd = k
 	}
+	if s.released(k, paw) {
+		return
+	}
 	if flow >= -c.ExpFlow || s.t[k] < s.inspMin {
 		return
 	}
@@ -539,6 +555,38 @@ func (s *Segmenter) inspiration(k int, paw, flow float64) {
 	}
 	s.expStart, s.state = e, stExp
 	s.align.settle()
+}
+
+// released reports, and starts expiration, when the ventilator has let go
+// of the pressure for 0.1 s although no gas flows out: the airway pressure
+// has stayed within 30 % of the swing above the breath's base (the swing
+// at least MinRise) while the patient, still pulling, holds the flow at or
+// above −ExpFlow — the first cycle of a double trigger, or an effort that
+// outlasts the ventilator's inspiration. Expiration starts after the last
+// sample still in the top quarter of the swing. A passive lung pushes gas
+// out as soon as the pressure falls and never gets here.
+func (s *Segmenter) released(k int, paw float64) bool {
+	swing := s.pTop - s.pBase
+	if s.t[k] < s.inspMin || swing < s.cfg.MinRise || paw >= s.pBase+0.3*swing {
+		s.relAt = -1
+		return false
+	}
+	if s.relAt < 0 {
+		s.relAt = k
+	}
+	if s.t[k]-s.t[s.relAt] < 0.1-1e-9 {
+		return false
+	}
+	e := s.relAt
+	for e > 1 && s.paw[e-1] < s.pTop-0.25*swing {
+		e--
+	}
+	if s.inspEnd < 0 || s.inspEnd > e {
+		s.inspEnd = e
+	}
+	s.expStart, s.expLow, s.state = e, s.relAt, stExp
+	s.align.settle()
+	return true
 }
 
 // quarterOut reports whether the run of outward flow that ends at k has
@@ -629,7 +677,7 @@ func (s *Segmenter) riseStart(k, lo int) int {
 // begin starts a breath at buffer index j.
 func (s *Segmenter) begin(j int) {
 	s.shift(j)
-	s.state, s.inspEnd, s.expStart = stInsp, -1, -1
+	s.state, s.inspEnd, s.expStart, s.expLow, s.relAt = stInsp, -1, -1, -1, -1
 	s.deadline, s.inspMin = s.t[0]+s.cfg.MaxBreath, s.t[0]+s.cfg.MinInsp
 	s.pBase = s.candBase
 	s.pTop, s.peakFlow = s.paw[0], s.flow[0]
@@ -669,10 +717,11 @@ func (s *Segmenter) drop(counter *int64) {
 		*counter++
 		s.afterDrop = true
 	}
-	s.state, s.n, s.nextDip, s.lastPEEP, s.cand = stSync, 0, false, math.NaN(), -1
+	s.state, s.n, s.nextDip, s.nextPull, s.lastPEEP, s.cand = stSync, 0, false, false, math.NaN(), -1
 	s.deadline = math.Inf(1)
 	s.recentVT, s.recentSw, s.recentR, s.recentPF = ring8{}, ring8{}, ring8{}, ring8{}
 	s.medVT, s.medSw, s.medPF, s.medR = 0, 0, 0, 0
+	s.asy.reset()
 }
 
 // shift moves samples [j, n) to the front of the buffer.

@@ -107,6 +107,12 @@ type Trend struct {
 	NetFlow float64
 	DPSlope float64 // driving pressure slope, cmH2O per hour
 	Rise    Attribution
+	// Asynchrony tallies the window's breaths; Period the last complete
+	// fixed 10-minute period (PeriodLength), with HasPeriod false before
+	// one has ended; Current the period in progress.
+	Asynchrony      Tally
+	Period, Current Tally
+	HasPeriod       bool
 }
 
 // Stat returns the statistics of a field by name.
@@ -144,6 +150,8 @@ type Window struct {
 	cfg     WindowConfig
 	ring    [][]float64 // the last Breaths breaths' values (output order)
 	flags   []Flags
+	asy     []Asynchrony // the breaths' asynchronies, beside ring
+	periods periods
 	head, n int
 	hist    []part // ring of breath parts for the baseline
 	hHead   int
@@ -176,7 +184,8 @@ func NewWindow(cfg WindowConfig) (*Window, error) {
 	if err := cfg.Validate(); err != nil {
 		return nil, err
 	}
-	w := &Window{cfg: cfg, ring: make([][]float64, cfg.Breaths), flags: make([]Flags, cfg.Breaths)}
+	w := &Window{cfg: cfg, ring: make([][]float64, cfg.Breaths), flags: make([]Flags, cfg.Breaths),
+		asy: make([]Asynchrony, cfg.Breaths), periods: periods{k: -1}}
 	for i := range w.ring {
 		w.ring[i] = make([]float64, 0, NumFields)
 	}
@@ -205,6 +214,8 @@ func NewWindow(cfg WindowConfig) (*Window, error) {
 func (w *Window) Add(b *Breath) {
 	w.ring[w.head] = b.TrustedValues(w.ring[w.head][:0])
 	w.flags[w.head] = b.Flags
+	w.asy[w.head] = b.Asynchrony
+	w.periods.add(b)
 	w.head = (w.head + 1) % len(w.ring)
 	w.n = min(w.n+1, len(w.ring))
 	w.remember(b)
@@ -231,7 +242,19 @@ func (w *Window) Trend() *Trend {
 	tr.NetFlow = w.netFlow(idx)
 	tr.CSlope, tr.DPSlope = w.slopes()
 	tr.Rise = w.attribute(w.last, idx)
+	tr.Asynchrony = w.tally(idx)
+	tr.Current, tr.Period, tr.HasPeriod = w.periods.cur, w.periods.last, w.periods.hasLast
 	return tr
+}
+
+// tally counts the asynchronies of the window's breaths.
+func (w *Window) tally(idx []int) Tally {
+	var a Tally
+	for _, slot := range idx {
+		v := w.ring[slot]
+		a.Add(&Breath{TStart: v[0], TEnd: v[1], Asynchrony: w.asy[slot], IneffectiveEfforts: v[iIE]})
+	}
+	return a
 }
 
 // inWindow lists the ring slots of breaths that started after from, oldest
@@ -405,6 +428,7 @@ var (
 	iPeak, iPlat, iPEEP = FieldIndex("ppeak"), FieldIndex("pplat"), FieldIndex("peep")
 	iVTi, iFitC, iCstat = FieldIndex("vti"), FieldIndex("fit_c"), FieldIndex("cstat")
 	iVTe, iDP           = FieldIndex("vte"), FieldIndex("dp")
+	iIE                 = FieldIndex("ineffective_efforts")
 )
 
 // partOf derives a breath's parts from its stored values.

@@ -1,0 +1,5 @@
+//go:build !race
+
+package mechanics_test
+
+const raceEnabled = false
