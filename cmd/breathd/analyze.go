@@ -298,13 +298,18 @@ type summary struct {
 	first float64
 	last  float64
 	flags [16]int64 // by flag bit
-	res   [][]float64
-	seen  []int64
-	rng   *rand.Rand
+	asy   mechanics.Tally
+	// the fixed 10-minute period in progress (its number perK) and the
+	// complete one with the highest asynchrony index
+	per, worst mechanics.Tally
+	perK       int64
+	res        [][]float64
+	seen       []int64
+	rng        *rand.Rand
 }
 
 func newSummary() *summary {
-	s := &summary{res: make([][]float64, len(summaryFields)),
+	s := &summary{res: make([][]float64, len(summaryFields)), perK: -1,
 		seen: make([]int64, len(summaryFields)), rng: rand.New(rand.NewPCG(1, 2))}
 	for i := range s.res {
 		s.res[i] = make([]float64, 0, reservoirSize) // allocated once: the same memory for any file
@@ -323,6 +328,12 @@ func (s *summary) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
 			s.flags[i]++ // counted by bit: no allocation per breath
 		}
 	}
+	s.asy.Add(b)
+	if k := int64(math.Floor(b.TStart / mechanics.PeriodLength)); k != s.perK {
+		s.endPeriod()
+		s.per, s.perK = mechanics.Tally{}, k
+	}
+	s.per.Add(b)
 	for i, f := range summaryFields {
 		v, _ := b.Trusted(f) // what the breath's flags disown is not the lung's
 		if math.IsNaN(v) {
@@ -335,6 +346,37 @@ func (s *summary) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
 			s.res[i][k] = v
 		}
 	}
+}
+
+// endPeriod keeps the period that ends if its index is the highest yet.
+func (s *summary) endPeriod() {
+	if idx := s.per.Index(); !math.IsNaN(idx) && (math.IsNaN(s.worst.Index()) || idx > s.worst.Index()) {
+		s.worst = s.per
+	}
+}
+
+// asynchronyText is the summary's asynchrony line: the index over the
+// whole recording with its counts, and the complete fixed 10-minute
+// period with the highest index.
+func (s *summary) asynchronyText() string {
+	var b strings.Builder
+	a := &s.asy
+	if idx := a.Index(); math.IsNaN(idx) {
+		fmt.Fprintf(&b, "asynchrony index - (under %d cycles)", mechanics.MinCycles)
+	} else {
+		fmt.Fprintf(&b, "asynchrony index %.1f %% (%d events over %d cycles and %d ineffective efforts", idx, a.Events(), a.Cycles, a.Counts[0])
+		for i, n := range a.Counts {
+			if n > 0 {
+				fmt.Fprintf(&b, "; %s %d", mechanics.AsynchronyWord(i), n)
+			}
+		}
+		b.WriteString(")")
+	}
+	if idx := s.worst.Index(); !math.IsNaN(idx) {
+		start := math.Floor(s.worst.Start/mechanics.PeriodLength) * mechanics.PeriodLength
+		fmt.Fprintf(&b, "; highest complete 10-min period %.1f %% (%.0f–%.0f s)", idx, start, start+mechanics.PeriodLength)
+	}
+	return b.String()
 }
 
 func (s *summary) print(w io.Writer, st stream.Status, took time.Duration) {
@@ -379,6 +421,7 @@ func (s *summary) print(w io.Writer, st stream.Status, took time.Duration) {
 		slices.Sort(parts)
 		fmt.Fprintf(w, "  flags: %s\n", strings.Join(parts, ", "))
 	}
+	fmt.Fprintf(w, "  %s\n", s.asynchronyText())
 }
 
 // channelsText says how far the flow channel lags the pressure channel,

@@ -66,7 +66,7 @@ func TestAnalyzeDemoGolden(t *testing.T) {
 		t.Fatalf("%d lines, golden has %d", len(gl), len(wl))
 	}
 	header := strings.SplitN(string(got), "\n", 2)[0]
-	const contract = "seq,t_start,t_end,ti,te,rr,ie,vti,vte,leak,ppeak,pplat,peep,pmean,dp,cstat,cdyn,rinsp,fit_r,fit_c,fit_p0,fit_r2,tau,mp,si,e2_pct,pause_decay,peepi,vt_pbw,eef,flags,at,device" // and run
+	const contract = "seq,t_start,t_end,ti,te,rr,ie,vti,vte,leak,ppeak,pplat,peep,pmean,dp,cstat,cdyn,rinsp,fit_r,fit_c,fit_p0,fit_r2,tau,mp,si,e2_pct,pause_decay,peepi,vt_pbw,eef,ineffective_efforts,flags,asynchrony,at,device" // and run
 	if header != contract {
 		t.Errorf("header %q", header)
 	}

@@ -46,7 +46,8 @@ func cmdFields(args []string, stdout, stderr io.Writer) error {
 		title   string
 		entries []payload.Entry
 	}{{"breath (MQTT <root>/<device>/breath; the CSV adds device and run at the end)", d.Breath}, {"flags", d.Flags},
-		{"trend", d.Trend}, {"trend.fields.<field>", d.TrendStat}, {"event", d.Event}, {"active.active[]", d.Active},
+		{"asynchrony", d.Asynchrony}, {"trend", d.Trend}, {"trend.fields.<field>", d.TrendStat},
+		{"trend.asynchrony, trend.asynchrony_period", d.AsynchronyTally}, {"event", d.Event}, {"active.active[]", d.Active},
 		{"status", d.Status}, {"status.counters", d.Counters}} {
 		fmt.Fprintf(tw, "\n%s\n", part.title)
 		for _, e := range part.entries {

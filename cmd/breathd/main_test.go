@@ -72,6 +72,7 @@ func TestUserErrors(t *testing.T) {
 	empty := write("empty.yaml", "")
 	delay := write("delay.yaml", "devices:\n  - id: a\n    stdin: true\n    measurement:\n      flow_delay: soon\n")
 	circuit := write("circuit.yaml", "devices:\n  - id: a\n    stdin: true\n    measurement: {circuit_compliance: 40}\n")
+	asy := write("asy.yaml", "devices:\n  - id: a\n    stdin: true\n    asynchrony: {short_ti: 1.5}\n")
 	tests := []struct {
 		name string
 		args []string
@@ -92,6 +93,7 @@ func TestUserErrors(t *testing.T) {
 		{"config empty", []string{"check", empty}, 1, "the file is empty"},
 		{"config bad delay", []string{"check", delay}, 1, delay + `:4: devices[0].measurement: flow delay "soon": want auto or a duration such as 20ms`},
 		{"config bad circuit", []string{"check", circuit}, 1, "circuit compliance 40 mL/cmH2O: 0 (flow measured at the airway) to 10"},
+		{"config bad asynchrony", []string{"check", asy}, 1, "devices[0].asynchrony: asynchrony short_ti 1.5 must be under 1 and long_ti 2 over 1 (shares of the mean)"},
 		{"bad circuit flag", []string{"analyze", "--circuit-compliance", "-1", "x"}, 2, "circuit compliance -1 mL/cmH2O: 0 (flow measured at the airway) to 10"},
 		{"config missing", []string{"check", "/nonexistent.yaml"}, 1, "does not exist"},
 		{"absent port", []string{"run", "--no-mqtt", "--config", absent}, 1, "serial port /dev/breathd-no-such-port: file does not exist: check the cable"},

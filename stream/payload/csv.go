@@ -12,8 +12,8 @@ import (
 )
 
 // CSVWriter writes one row per breath, the columns of CSVColumns: seq, the
-// fields of mechanics.Fields() with their Decimals, flags (space-separated
-// words), at (the wall-clock time of the breath's start, RFC 3339), device
+// fields of mechanics.Fields() with their Decimals, flags and asynchrony
+// (space-separated words), at (the wall-clock time of the breath's start, RFC 3339), device
 // and run; a header first; a null value is an empty cell. Safe for one
 // goroutine.
 type CSVWriter struct {
@@ -55,6 +55,8 @@ func (c *CSVWriter) Breath(device string, b *mechanics.Breath, _ *mechanics.Wind
 	}
 	buf = append(buf, ',')
 	buf = b.Flags.AppendWords(buf, ' ')
+	buf = append(buf, ',')
+	buf = b.Asynchrony.AppendWords(buf, ' ')
 	buf = append(buf, ',')
 	if !b.At.IsZero() {
 		buf = b.At.UTC().AppendFormat(buf, time.RFC3339Nano)

@@ -27,6 +27,7 @@ type Entry struct {
 var (
 	entrySeq    = Entry{Name: "seq", Type: "integer", Meaning: "breath number since the device started"}
 	entryFlags  = Entry{Name: "flags", Type: "array", Meaning: "the flags of the breath (see flags); in the CSV, words separated by spaces"}
+	entryAsy    = Entry{Name: "asynchrony", Type: "array", Meaning: "the patient–ventilator asynchronies found in and just before the breath (see asynchrony); in the CSV, words separated by spaces"}
 	entryAt     = Entry{Name: "at", Type: "datetime", Meaning: "wall-clock time of the breath's start (RFC 3339, UTC), from the recording's clock lines or the time a live source's first sample was read", Null: "when the stream has no clock"}
 	entryDevice = Entry{Name: "device", Type: "string", Meaning: "device id"}
 	entryRun    = Entry{Name: "run", Type: "string", Meaning: "random id of the breathd run (or analysis) that computed the record; seq starts again with each run"}
@@ -49,14 +50,14 @@ func breathFields() []Entry {
 // CSVColumns are the columns of the breath CSV, in order.
 func CSVColumns() []Entry {
 	cols := append([]Entry{entrySeq}, breathFields()...)
-	flags := entryFlags
-	flags.Type = "string"
-	return append(cols, flags, entryAt, entryDevice, entryRun)
+	flags, asy := entryFlags, entryAsy
+	flags.Type, asy.Type = "string", "string"
+	return append(cols, flags, asy, entryAt, entryDevice, entryRun)
 }
 
 // BreathKeys are the keys of the breath payload.
 func BreathKeys() []Entry {
-	return append(append([]Entry{entryV, entryDevice, entryRun, entrySeq, entryAt}, breathFields()...), entryFlags)
+	return append(append([]Entry{entryV, entryDevice, entryRun, entrySeq, entryAt}, breathFields()...), entryFlags, entryAsy)
 }
 
 // Dict is the data dictionary: every field breathd writes, with its unit,
@@ -67,14 +68,19 @@ type Dict struct {
 	Quantiles string  `json:"quantiles"`
 	Breath    []Entry `json:"breath"`
 	Flags     []Entry `json:"flags"`
-	CSV       []Entry `json:"csv"`
-	Trend     []Entry `json:"trend"`
-	TrendStat []Entry `json:"trend_stat"` // the object under trend.fields.<field>
-	Event     []Entry `json:"event"`
-	Active    []Entry `json:"active"` // each element of active.active
-	Status    []Entry `json:"status"`
-	Counters  []Entry `json:"counters"` // status.counters
-	Wave      []Entry `json:"wave"`     // the opt-in waveform topic
+	// Asynchrony lists the words of a breath's asynchrony
+	Asynchrony []Entry `json:"asynchrony"`
+	// AsynchronyTally is the object under trend.asynchrony and
+	// trend.asynchrony_period
+	AsynchronyTally []Entry `json:"asynchrony_tally"`
+	CSV             []Entry `json:"csv"`
+	Trend           []Entry `json:"trend"`
+	TrendStat       []Entry `json:"trend_stat"` // the object under trend.fields.<field>
+	Event           []Entry `json:"event"`
+	Active          []Entry `json:"active"` // each element of active.active
+	Status          []Entry `json:"status"`
+	Counters        []Entry `json:"counters"` // status.counters
+	Wave            []Entry `json:"wave"`     // the opt-in waveform topic
 }
 
 // Dictionary returns the data dictionary of this version of breathd.
@@ -82,11 +88,14 @@ func Dictionary(version string) Dict {
 	d := Dict{V: Version, Version: version,
 		Quantiles: "median, q1 and q3 interpolate linearly between the order statistics (Hyndman–Fan type 7); iqr is q3 − q1; n counts the values no flag disowns",
 		Breath:    BreathKeys(), CSV: CSVColumns(),
-		Trend: entriesOf(trendPayload{}), TrendStat: entriesOf(statPayload{}),
+		Trend: entriesOf(trendPayload{}), TrendStat: entriesOf(statPayload{}), AsynchronyTally: entriesOf(tallyPayload{}),
 		Event: entriesOf(eventPayload{}), Active: entriesOf(activePayload{}),
 		Status: entriesOf(statusPayload{}), Counters: counterEntries, Wave: entriesOf(wavePayload{})}
 	for name, meaning := range mechanics.FlagInfo() {
 		d.Flags = append(d.Flags, Entry{Name: name, Type: "string", Meaning: meaning})
+	}
+	for name, meaning := range mechanics.AsynchronyInfo() {
+		d.Asynchrony = append(d.Asynchrony, Entry{Name: name, Type: "string", Meaning: meaning})
 	}
 	return d
 }

@@ -82,8 +82,8 @@ func Event(ev *alerts.Event) []byte {
 
 // Breath encodes a breath record (BreathKeys): "v", device, run, seq, "at"
 // (the wall-clock time of its start, b.At; null when unknown), the fields
-// of mechanics.Fields() under their names (null when not computed) and
-// flags.
+// of mechanics.Fields() under their names (null when not computed),
+// flags and asynchrony.
 func Breath(device, run string, b *mechanics.Breath) []byte {
 	var vals [mechanics.NumFields]float64
 	v := b.Values(vals[:0])
@@ -97,6 +97,11 @@ func Breath(device, run string, b *mechanics.Breath) []byte {
 		flags = []string{}
 	}
 	m["flags"] = flags
+	asy := b.Asynchrony.Words()
+	if asy == nil {
+		asy = []string{}
+	}
+	m["asynchrony"] = asy
 	out, _ := json.Marshal(m)
 	return out
 }
@@ -133,6 +138,30 @@ type trendPayload struct {
 	ComplianceChange num                    `json:"compliance_change" doc:"%|the window's median compliance against the 30 min before it"`
 	NetFlow          num                    `json:"net_flow" doc:"L/min|median (vti − vte)/duration: the flow sensor's drift, or a leak"`
 	Rise             risePayload            `json:"rise" doc:"|why the peak pressure rose: cause (none, resistive, elastic, both), method, peak, resistive and elastic rises in cm[H2O], baseline_breaths"`
+	Asynchrony       tallyPayload           `json:"asynchrony" doc:"|the window's patient–ventilator asynchrony: index, events, cycles, counts by type (see asynchrony_tally)"`
+	AsynchronyPeriod *tallyPayload          `json:"asynchrony_period" doc:"|the same over the last complete fixed 10-minute period of stream time (from 0 s); null before one has ended"`
+}
+
+// tallyPayload is an asynchrony tally as published.
+type tallyPayload struct {
+	Index  num            `json:"index" doc:"%|asynchrony index: events / (cycles + ineffective efforts) × 100; null under 10 cycles"`
+	Events int            `json:"events" doc:"|asynchrony events: each word of each breath once, ineffective efforts by their number"`
+	Cycles int            `json:"cycles" doc:"|ventilator cycles (breaths)"`
+	Counts map[string]int `json:"counts" doc:"|events by type, under the words of the breath's asynchrony"`
+	Start  num            `json:"start" doc:"s|stream time of the first breath's start"`
+	End    num            `json:"end" doc:"s|stream time of the last breath's end (a period: its end)"`
+}
+
+func tallyOf(a *mechanics.Tally) tallyPayload {
+	counts := make(map[string]int, mechanics.NumAsynchronies)
+	for i, n := range a.Counts {
+		counts[mechanics.AsynchronyWord(i)] = n
+	}
+	start, end := num(a.Start), num(a.End)
+	if a.Cycles == 0 {
+		start, end = num(math.NaN()), num(math.NaN())
+	}
+	return tallyPayload{num(a.Index()), a.Events(), a.Cycles, counts, start, end}
 }
 
 // Trend encodes the rolling window summary after breath seq.
@@ -143,9 +172,17 @@ func Trend(device string, seq int64, tr *mechanics.Trend, at time.Time) []byte {
 		fields[f.Name] = statPayload{num(s.Median), num(s.Q1), num(s.Q3), num(s.IQR()), s.N}
 	}
 	r := tr.Rise
+	var period *tallyPayload
+	if tr.HasPeriod {
+		p := tallyOf(&tr.Period)
+		p.Start, p.End = num(math.Floor(tr.Period.Start/mechanics.PeriodLength)*mechanics.PeriodLength),
+			num((math.Floor(tr.Period.Start/mechanics.PeriodLength)+1)*mechanics.PeriodLength)
+		period = &p
+	}
 	out, _ := json.Marshal(trendPayload{Version, device, seq, stamp(at), num(tr.At), tr.N, num(tr.Span), fields,
 		num(tr.CSlope), num(tr.DPSlope), num(tr.CChange), num(tr.NetFlow),
-		risePayload{r.Cause, r.Method, num(r.PeakRise), num(r.ResistiveRise), num(r.ElasticRise), r.BaselineBreaths}})
+		risePayload{r.Cause, r.Method, num(r.PeakRise), num(r.ResistiveRise), num(r.ElasticRise), r.BaselineBreaths},
+		tallyOf(&tr.Asynchrony), period})
 	return out
 }
 

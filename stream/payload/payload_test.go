@@ -156,8 +156,8 @@ func TestStatusGolden(t *testing.T) {
 	}
 }
 
-// TestCSV: the header is seq, every field of the registry, flags, at,
-// device and run; a value not computed is an empty cell. DESIGN §6.
+// TestCSV: the header is seq, every field of the registry, flags,
+// asynchrony, at, device and run; a value not computed is an empty cell. DESIGN §6.
 func TestCSV(t *testing.T) {
 	var buf bytes.Buffer
 	c := NewCSVWriter(&buf, "r1")
@@ -165,7 +165,7 @@ func TestCSV(t *testing.T) {
 	c.Flush()
 	rows := strings.Split(strings.TrimSpace(buf.String()), "\n")
 	head, row := strings.Split(rows[0], ","), strings.Split(rows[1], ",")
-	if len(head) != mechanics.NumFields+5 || head[0] != "seq" || !slices.Equal(head[len(head)-4:], []string{"flags", "at", "device", "run"}) ||
+	if len(head) != mechanics.NumFields+6 || head[0] != "seq" || !slices.Equal(head[len(head)-5:], []string{"flags", "asynchrony", "at", "device", "run"}) ||
 		len(row) != len(head) || !slices.Equal(row[len(row)-2:], []string{"bed1", "r1"}) {
 		t.Fatalf("header %v, row %v", head, row)
 	}

@@ -46,6 +46,9 @@ type Device struct {
 	Patient mechanics.Patient    `yaml:"patient"`
 	Rules   []alerts.Override    `yaml:"rules"` // overrides of the default rules by id, or new rules
 	Measure Measurement          `yaml:"measurement"`
+	// Asynchrony sets the patient–ventilator asynchrony detectors'
+	// thresholds (each 0 or absent: its default).
+	Asynchrony mechanics.AsynchronyConfig `yaml:"asynchrony"`
 
 	rules     []alerts.Rule    // the defaults merged with Rules
 	mechanics mechanics.Config // from Patient and Measure
@@ -221,6 +224,11 @@ func (d *Device) validate(i int) error {
 	mc, err := d.Measure.Mechanics(d.Patient)
 	if err != nil {
 		return field(err, "devices", i, "measurement")
+	}
+	mc.Asynchrony = d.Asynchrony
+	mc.Asynchrony.Defaults()
+	if err := mc.Asynchrony.Validate(); err != nil {
+		return field(err, "devices", i, "asynchrony")
 	}
 	d.mechanics = mc
 	rules, err := alerts.Merge(alerts.Defaults(), d.Rules)
