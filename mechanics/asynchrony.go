@@ -130,7 +130,7 @@ func (r *ring8) mean() float64 {
 func (s *Segmenter) asynchrony(b *Breath, e, j int, trig bool) {
 	c := &s.cfg.Asynchrony
 	a := &s.asy
-	if n := s.ineffectiveEfforts(e, j); n > 0 {
+	if n := s.ineffectiveEfforts(e, j, &b.EffortAt); n > 0 {
 		b.IneffectiveEfforts = float64(n)
 		b.Asynchrony |= AsyIneffectiveEffort
 	} else {
@@ -240,21 +240,28 @@ func (s *Segmenter) bin(lo, hi int) (ps, fs []float64, w int) {
 }
 
 // ineffectiveEfforts counts the efforts in the expiration [e, j) that no
-// breath followed: the airway pressure fell by EffortDip or more (and
-// four of its binned noise) within 0.4 s while the flow moved toward the
-// patient by EffortFlow or more, the two together (Thille 2006: an abrupt
-// pressure drop of at least 0.5 cmH2O with a simultaneous fall of
-// expiratory flow toward zero), and
-// then, within 0.8 s and before the next breath's trigger, the pressure
-// came back by half the drop while the flow fell back by half its move —
-// the effort ended. A passive expiration's pressure and flow move
-// monotonically toward PEEP and zero and never come back; a valve's
-// wiggle moves pressure and flow together, not against each other; the
-// effort that triggers the next breath has no end inside this one. The
-// search starts after the expiration's strongest outward flow (its first
-// 40 %, at most 1 s): an effort that began in inspiration and fades as the
-// valve opens is not one of expiration.
-func (s *Segmenter) ineffectiveEfforts(e, j int) int {
+// breath followed, and notes the times of the first ones' deepest
+// pressure in at. On 50 ms means of pressure and flow: the airway
+// pressure fell by EffortDip or more (and four of its binned noise)
+// within 0.4 s while the flow moved toward the patient by EffortFlow or
+// more, the two together (see together; Thille 2006: an abrupt pressure
+// drop of at least 0.5 cmH2O with a simultaneous fall of expiratory flow
+// toward zero); then, from the deepest pressure (within 0.3 s) and within
+// 0.8 s, before the last 0.1 s (the next breath's trigger), the pressure
+// came back by 0.6 of EffortDip and a quarter of its fall while the flow
+// fell back by 0.6 of EffortFlow and a quarter of its rise, never rising
+// by half EffortFlow meanwhile — the effort ended. A passive expiration's
+// pressure and flow move monotonically toward PEEP and zero and never
+// come back; a valve settling on PEEP moves the pressure first and the
+// flow after, and wobbles less; a ventilator pushing gas in to hold PEEP
+// raises pressure and flow together; the effort that triggers the next
+// breath has no end inside this one. The search starts after the
+// expiration's strongest outward flow (in its first 40 %, at most 1 s): an
+// effort that began in inspiration and fades as the valve opens is not
+// one of expiration. The recovery's and the togetherness's shares are our
+// choices, set on the test-lung recordings (no false effort) and the
+// simulator.
+func (s *Segmenter) ineffectiveEfforts(e, j int, at *[3]float64) int {
 	c := &s.cfg.Asynchrony
 	ps, fs, w := s.bin(e, j)
 	nb := len(ps)
@@ -306,6 +313,9 @@ func (s *Segmenter) ineffectiveEfforts(e, j int) int {
 				break
 			}
 			if ps[b]-ps[bot] >= pBack && fs[bot]-fs[b] >= fBack {
+				if count < len(at) {
+					at[count] = s.t[e+bot*w+w/2]
+				}
 				count++
 				i = b
 				break

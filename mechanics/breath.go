@@ -141,6 +141,9 @@ type Breath struct {
 	// IneffectiveEfforts counts the efforts in this breath's expiration
 	// that no breath followed (a number, for the field registry).
 	IneffectiveEfforts float64
+	// EffortAt are the stream times of the first ineffective efforts'
+	// deepest pressure, s (for pictures; not an output field).
+	EffortAt [3]float64
 
 	Flags      Flags
 	Asynchrony Asynchrony // patient–ventilator asynchronies in and just before the breath
