@@ -7,6 +7,8 @@ import (
 	stdpng "image/png"
 	"os"
 	"path/filepath"
+	"slices"
+	"strconv"
 	"strings"
 	"testing"
 
@@ -234,5 +236,50 @@ func TestFieldsVerb(t *testing.T) {
 	}
 	if code, out, _ := runCLI(t, "fields"); code != 0 || !strings.Contains(out, "cstat") || !strings.Contains(out, "mL/cm[H2O]") {
 		t.Errorf("fields: exit %d\n%s", code, out)
+	}
+}
+
+// TestAsynchronyInAnalyze: on three minutes of the simulator's mixed
+// asynchrony scenario, analyze prints the asynchrony index line, and the
+// picture names on its strip each asynchrony the CSV gives for the
+// breaths it shows (the count of each name against the CSV's; common
+// practice, no source).
+func TestAsynchronyInAnalyze(t *testing.T) {
+	dir := t.TempDir()
+	rec := filepath.Join(dir, "asy.txt")
+	if code, _, errs := runCLI(t, "simulate", "--scenario", "configs/scenarios/asynchrony.yaml", "--duration", "3m", "--out", rec); code != 0 {
+		t.Fatal(errs)
+	}
+	svg, csvPath := filepath.Join(dir, "asy.svg"), filepath.Join(dir, "asy.csv")
+	code, _, errs := runCLI(t, "analyze", "--plot", svg, "--plot-from", "0", "--plot-span", "180", "--csv", csvPath, rec)
+	if code != 0 || !strings.Contains(errs, "asynchrony index ") {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	data, _ := os.ReadFile(csvPath)
+	rows := strings.Split(strings.TrimSpace(string(data)), "\n")
+	head := strings.Split(rows[0], ",")
+	col := slices.Index(head, "asynchrony")
+	ie := slices.Index(head, "ineffective_efforts")
+	want := map[string]int{}
+	names := map[string]string{"double_trigger": "double trigger", "auto_trigger": "auto-trigger", "short_cycle": "short cycle",
+		"long_cycle": "long cycle", "reverse_trigger": "reverse trigger"}
+	for _, r := range rows[1:] {
+		f := strings.Split(r, ",")
+		n, _ := strconv.Atoi(f[ie])
+		want["ineffective effort"] += min(n, 3)
+		for _, w := range strings.Fields(f[col]) {
+			if w != "ineffective_effort" {
+				want[names[w]]++
+			}
+		}
+	}
+	if want["ineffective effort"] == 0 || want["double trigger"] == 0 {
+		t.Fatalf("the scenario's first 3 minutes gave %v: the test tests too little", want)
+	}
+	text, _ := os.ReadFile(svg)
+	for name, n := range want {
+		if got := strings.Count(string(text), name); got != n {
+			t.Errorf("%q %d times on the strip, the CSV has %d", name, got, n)
+		}
 	}
 }

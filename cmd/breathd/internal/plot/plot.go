@@ -277,6 +277,7 @@ func stripPanels(st *strip, from, span float64, breaths []mechanics.Breath) []*g
 	addMarks(pres, plats, colFlow, draw.BoxGlyph{}, vg.Points(2.2), "plateau")
 	addMarks(pres, peeps, colVolume, draw.PlusGlyph{}, vg.Points(3.5), "PEEP")
 	addMarks(flow, starts, colMark, draw.TriangleGlyph{}, vg.Points(2.6), "breath start")
+	markAsynchrony(pres, st, from, span, breaths)
 	minSpan(pres, 10)
 	minSpan(flow, 20)
 	minSpan(vol, 100)
@@ -288,6 +289,63 @@ func stripPanels(st *strip, from, span float64, breaths []mechanics.Breath) []*g
 	}
 	vol.X.Label.Text = "s of recording"
 	return []*gonum.Plot{pres, flow, vol}
+}
+
+// asyNames are the asynchronies' names on the strip, by bit.
+var asyNames = [mechanics.NumAsynchronies]string{"ineffective effort", "double trigger", "auto-trigger",
+	"short cycle", "long cycle", "reverse trigger"}
+
+// markAsynchrony marks the asynchronies on the pressure panel, each
+// named: an ineffective effort at its deepest pressure, the others at
+// their breath's start, at the pressure there.
+func markAsynchrony(p *gonum.Plot, st *strip, from, span float64, breaths []mechanics.Breath) {
+	var pts plotter.XYs
+	var names []string
+	at := func(t float64, name string) {
+		if t >= from && t < from+span {
+			pts = append(pts, plotter.XY{X: t, Y: st.pawAt(t)})
+			names = append(names, name)
+		}
+	}
+	for _, b := range breaths {
+		if b.TEnd < from || b.TStart >= from+span || b.Asynchrony == 0 {
+			continue
+		}
+		for k := 0; k < min(int(b.IneffectiveEfforts), len(b.EffortAt)); k++ {
+			at(b.EffortAt[k], asyNames[0])
+		}
+		var words []string
+		for i := 1; i < mechanics.NumAsynchronies; i++ {
+			if b.Asynchrony&(1<<i) != 0 {
+				words = append(words, asyNames[i])
+			}
+		}
+		if len(words) > 0 {
+			at(b.TStart, strings.Join(words, ", "))
+		}
+	}
+	addMarks(p, pts, colPeak, draw.CrossGlyph{}, vg.Points(3.5), "asynchrony")
+	if len(pts) == 0 {
+		return
+	}
+	labels, _ := plotter.NewLabels(plotter.XYLabels{XYs: pts, Labels: names})
+	for i := range labels.TextStyle {
+		labels.TextStyle[i].Font.Size = vg.Points(6.5)
+		labels.TextStyle[i].Color = colPeak
+		labels.TextStyle[i].Rotation = math.Pi / 2
+	}
+	labels.Offset = vg.Point{X: vg.Points(3), Y: vg.Points(6)}
+	p.Add(labels)
+}
+
+// pawAt is the pressure at the sample nearest t.
+func (st *strip) pawAt(t float64) float64 {
+	i, _ := slices.BinarySearch(st.t, t)
+	i = min(i, len(st.t)-1)
+	if i > 0 && t-st.t[i-1] < st.t[i]-t {
+		i--
+	}
+	return st.paw[i]
 }
 
 // trend is one trend panel: its field, and the rule fields drawn on it.
@@ -351,7 +409,11 @@ func trendPanels(d *Data) []*gonum.Plot {
 		markEvents(p, d.events, scale, func(field string) bool { return slices.Contains(tp.rules, field) })
 		rows = append(rows, p)
 	}
-	if lane := ruleLane(d.events, scale, func(field string) bool { return !onPanel[field] }); lane != nil {
+	end := 0.0 // the recording's last breath's end: a rule still raised lasts until then
+	if n := len(d.breaths); n > 0 {
+		end = d.breaths[n-1].TEnd
+	}
+	if lane := ruleLane(d.events, end, scale, func(field string) bool { return !onPanel[field] }); lane != nil {
 		lane.X.Min, lane.X.Max = rows[0].X.Min, rows[0].X.Max
 		rows = append(rows, lane)
 	}
@@ -441,7 +503,7 @@ func markEvents(p *gonum.Plot, events []alerts.Event, scale float64, shows func(
 
 // ruleLane is a panel of the rules whose fields no trend panel shows: one
 // row per rule, a bar from each raising to its clearing (or the end).
-func ruleLane(events []alerts.Event, scale float64, shows func(field string) bool) *gonum.Plot {
+func ruleLane(events []alerts.Event, end, scale float64, shows func(field string) bool) *gonum.Plot {
 	var order []string
 	row := map[string]int{}
 	for _, ev := range events {
@@ -464,7 +526,6 @@ func ruleLane(events []alerts.Event, scale float64, shows func(field string) boo
 		}
 		return ticks
 	})
-	end := 0.0
 	for _, ev := range events {
 		end = max(end, ev.T)
 	}
