@@ -55,7 +55,7 @@ devices:
     simulate: {scenario: configs/scenarios/bronchospasm.yaml, speed: 40}
     rules: [{id: peak_plateau_gap_high, latching: true}]
   - id: bed4
-    simulate: {scenario: configs/scenarios/waking-on-support.yaml, speed: 1}
+    simulate: {scenario: configs/scenarios/asynchrony.yaml, speed: 10}
 `, httpAddr, pw)), 0o600)
 	run := breathd("run", "--config", conf, "--listen", mqttAddr)
 	out := &syncBuffer{}
@@ -168,6 +168,12 @@ devices:
 		}
 		time.Sleep(50 * time.Millisecond)
 	}
+	// the asynchrony index of bed4 (the simulator's mixed asynchrony
+	// scenario), once its window holds 10 breaths
+	waitFor(t, "bed4's asynchrony index on the page", 40*time.Second, func() bool {
+		text, _ := chromedp.Run(bctx, chromedp.Text(chromedp.CSS(`section[data-device="bed4"] p.asynchrony`)))
+		return strings.Contains(text, "Asynchrony index") && strings.Contains(text, "% over the last")
+	})
 	// the raised rule, and its acknowledgement
 	rule := `section[data-device="bed3"] ul.active`
 	waitFor(t, "bed3's raised rule on the page", 40*time.Second, func() bool {

@@ -3,6 +3,7 @@ package web
 import (
 	"fmt"
 	"math"
+	"strings"
 	"sync"
 	"time"
 
@@ -32,10 +33,12 @@ type wavePoint [4]float64
 type trendRow [2 + len(trendFields)]float64
 
 // trendFields are the per-breath fields the page's trends offer.
-var trendFields = [...]string{"rr", "vti", "ppeak", "pplat", "peep", "peepi", "dp", "cstat", "fit_c", "fit_r", "mp", "vt_pbw"}
+// asynchrony_index is not a breath's but the window's after it.
+var trendFields = [...]string{"rr", "vti", "ppeak", "pplat", "peep", "peepi", "dp", "cstat", "fit_c", "fit_r", "mp", "vt_pbw", "asynchrony_index"}
 
 // Live keeps what the page shows of one device: the waveform at 25 Hz, the
-// last 24 h of breaths, the latest breath, the rise attribution, the rule
+// last 24 h of breaths, the latest breath, the rise attribution, the
+// asynchrony index, the rule
 // transitions and the raised rules. It is the device loop's sample,
 // breath and event sink; the page's streams read it under its lock.
 type Live struct {
@@ -54,6 +57,7 @@ type Live struct {
 	breathsN   int64
 	lastBreath []byte // its payload
 	rise       string // why the pressure rose, in words
+	asynchrony string // the asynchrony index, in words
 	events     [eventsKeep]alerts.Event
 	eventsN    int64
 	active     []alerts.Active
@@ -96,24 +100,30 @@ func (l *Live) Breath(dev string, b *mechanics.Breath, w *mechanics.Window) {
 	v := b.TrustedValues(vals[:0])
 	row := trendRow{b.TStart, 0}
 	for i, name := range trendFields {
-		row[i+2] = v[mechanics.FieldIndex(name)]
+		if k := mechanics.FieldIndex(name); k >= 0 {
+			row[i+2] = v[k]
+		}
 	}
+	row[len(row)-1] = math.NaN()
 	if !b.At.IsZero() {
 		row[1] = float64(b.At.UnixMilli())
 	}
-	rise := ""
+	rise, asy := "", ""
 	if w != nil {
-		if r := w.Trend().Rise; r.Cause != mechanics.RiseNone {
+		tr := w.Trend()
+		if r := tr.Rise; r.Cause != mechanics.RiseNone {
 			rise = fmt.Sprintf("peak pressure up %.1f cmH2O against the 30 min before: %s (resistive part %+.1f, elastic part %+.1f cmH2O, by %s)",
 				r.PeakRise, r.Cause, r.ResistiveRise, r.ElasticRise, r.Method)
 		}
+		row[len(row)-1] = tr.Asynchrony.Index()
+		asy = asynchronyText(tr)
 	}
 	p := payload.Breath(dev, "", b)
 	l.mu.Lock()
 	defer l.mu.Unlock()
 	l.breaths[l.breathsN%breathsKeep] = row
 	l.breathsN++
-	l.lastBreath, l.rise = p, rise
+	l.lastBreath, l.rise, l.asynchrony = p, rise, asy
 	// the strip's volume: from this breath's start, which the breath's
 	// detection comes after
 	first := l.waveN
@@ -137,4 +147,31 @@ func (l *Live) Event(ev *alerts.Event, active []alerts.Active) {
 	l.eventsN++
 	l.active = append(l.active[:0], active...)
 	l.activeSeq++
+}
+
+// asynchronyText is the window's asynchrony index and counts, and the
+// last complete 10-minute period's index, in words.
+func asynchronyText(tr *mechanics.Trend) string {
+	a := &tr.Asynchrony
+	idx := a.Index()
+	if math.IsNaN(idx) {
+		return ""
+	}
+	var b strings.Builder
+	fmt.Fprintf(&b, "%.1f %% over the last %d breaths", idx, a.Cycles)
+	sep := " ("
+	for i, n := range a.Counts {
+		if n > 0 {
+			fmt.Fprintf(&b, "%s%s %d", sep, strings.ReplaceAll(mechanics.AsynchronyWord(i), "_", " "), n)
+			sep = ", "
+		}
+	}
+	if sep == ", " {
+		b.WriteString(")")
+	}
+	if p := tr.Period.Index(); tr.HasPeriod && !math.IsNaN(p) {
+		end := (math.Floor(tr.Period.Start/mechanics.PeriodLength) + 1) * mechanics.PeriodLength
+		fmt.Fprintf(&b, "; %.1f %% in the 10 minutes to %.0f s", p, end)
+	}
+	return b.String()
 }

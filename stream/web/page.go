@@ -87,7 +87,7 @@ func (s *Server) ack(w http.ResponseWriter, r *http.Request) {
 // cursor is what one page has been sent of a device.
 type cursor struct {
 	wave, breaths, events, active int64
-	rise                          string
+	rise, asynchrony              string
 }
 
 // live streams the devices to one page as Server-Sent Events: at once the
@@ -175,9 +175,9 @@ func (s *Server) sendNew(send func(string, any) error, d *Device, c *cursor) err
 		active = append([]alerts.Active(nil), l.active...)
 		c.active = l.activeSeq
 	}
-	rise := l.rise
-	riseNew := rise != c.rise
-	c.rise = rise
+	rise, asy := l.rise, l.asynchrony
+	riseNew, asyNew := rise != c.rise, asy != c.asynchrony
+	c.rise, c.asynchrony = rise, asy
 	l.mu.Unlock()
 
 	if len(wave) > 0 {
@@ -197,6 +197,11 @@ func (s *Server) sendNew(send func(string, any) error, d *Device, c *cursor) err
 	}
 	if riseNew {
 		if err := send("rise", map[string]any{"device": d.ID, "text": rise}); err != nil {
+			return err
+		}
+	}
+	if asyNew {
+		if err := send("asynchrony", map[string]any{"device": d.ID, "text": asy}); err != nil {
 			return err
 		}
 	}

@@ -104,7 +104,7 @@ function drawTrend(d) {
     if (r[0] < tmax - range) continue;
     xs.push((r[0] - tmax) / 60); ys.push(r[col]);
   }
-  const unit = { cstat: "mL/cmH2O", dp: "cmH2O", fit_r: "cmH2O·s/L", mp: "J/min", rr: "/min" }[field];
+  const unit = { cstat: "mL/cmH2O", dp: "cmH2O", fit_r: "cmH2O·s/L", mp: "J/min", rr: "/min", asynchrony_index: "%" }[field];
   d.trend.axes[1].label = d.el.querySelector(".trend-field").selectedOptions[0].text + ", " + unit;
   d.trendMarks = d.events.filter(e => e.t >= tmax - range && e.transition !== "acknowledged")
     .map(e => ({ x: (e.t - tmax) / 60, label: e.rule + " " + e.transition }));
@@ -131,7 +131,11 @@ function showBreath(d, b) {
     div.append(dt, dd);
     return div;
   }));
-  d.el.querySelector(".flags").textContent = (b.flags && b.flags.length) ? "breath " + b.seq + " flags: " + b.flags.join(", ") : "";
+  const words = (b.asynchrony || []).map(w => w.replaceAll("_", " "));
+  d.el.querySelector(".flags").textContent = [
+    (b.flags && b.flags.length) ? "breath " + b.seq + " flags: " + b.flags.join(", ") : "",
+    words.length ? "asynchrony: " + words.join(", ") + (b.ineffective_efforts > 1 ? " (" + b.ineffective_efforts + " ineffective efforts)" : "") : "",
+  ].filter(Boolean).join(" · ");
 }
 
 function showActive(d) {
@@ -192,6 +196,7 @@ on("breaths", m => {
 });
 on("breath", m => showBreath(card(m.device), m.breath));
 on("rise", m => { card(m.device).el.querySelector(".rise").textContent = m.text ? "Why the pressure rose: " + m.text : ""; });
+on("asynchrony", m => { card(m.device).el.querySelector(".asynchrony").textContent = m.text ? "Asynchrony index " + m.text : ""; });
 on("events", m => {
   const d = card(m.device);
   d.events.push(...m.events);
