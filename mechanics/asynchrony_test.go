@@ -202,17 +202,28 @@ func loadScenario(t *testing.T, name string) lungsim.Scenario {
 // and double triggers: sensitivity and PPV at least 90 % over the four
 // runs; the index within 1 percentage point of the truth's in each.
 func TestAsynchronyAgainstSimulator(t *testing.T) {
-	var all asyScore
-	for _, seed := range []uint64{20, 21, 22, 23} {
-		sc := loadScenario(t, "asynchrony")
-		sc.Seed = seed
-		_, truths, found := runSim(t, sc, mechanics.Config{})
-		s := scoreAsynchrony(truths, found)
-		t.Logf("asynchrony scenario, seed %d, %d truths, %d breaths found:\n%s", seed, len(truths), len(found), s.report())
-		if d := math.Abs(s.index() - s.truthIndex()); d > 1 {
-			t.Errorf("seed %d: index %.2f %% against the truth's %.2f %%: %.2f points apart, want ≤ 1", seed, s.index(), s.truthIndex(), d)
+	t.Parallel()
+	seeds := []uint64{20, 21, 22, 23}
+	scores := make([]asyScore, len(seeds))
+	t.Run("seeds", func(t *testing.T) {
+		for k, seed := range seeds {
+			t.Run(fmt.Sprint(seed), func(t *testing.T) {
+				t.Parallel()
+				sc := loadScenario(t, "asynchrony")
+				sc.Seed = seed
+				_, truths, found := runSim(t, sc, mechanics.Config{})
+				s := scoreAsynchrony(truths, found)
+				t.Logf("asynchrony scenario, seed %d, %d truths, %d breaths found:\n%s", seed, len(truths), len(found), s.report())
+				if d := math.Abs(s.index() - s.truthIndex()); d > 1 {
+					t.Errorf("seed %d: index %.2f %% against the truth's %.2f %%: %.2f points apart, want ≤ 1", seed, s.index(), s.truthIndex(), d)
+				}
+				scores[k] = s
+			})
 		}
-		all.add(&s)
+	})
+	var all asyScore
+	for k := range scores {
+		all.add(&scores[k])
 	}
 	t.Logf("all four runs:\n%s", all.report())
 	for i := range 2 {
@@ -225,31 +236,39 @@ func TestAsynchronyAgainstSimulator(t *testing.T) {
 // TestPassiveDayHasNoAsynchrony: a passive lung on pressure control
 // through an exhalation valve with resistance (the pressure then follows
 // the expiratory flow, as in an effort), a heartbeat's ripple, sensor
-// noise and a 20 ms flow-channel delay, for 24 simulated hours: no breath
-// may carry an asynchrony (a lung without muscles makes none; common
-// practice, no source). Under the race detector, which runs it ten
-// times slower, 3 hours (the day runs in the plain test run).
+// noise and a 20 ms flow-channel delay, for 24 simulated hours in four
+// 6-hour stretches of their own seeds, side by side: no breath may carry
+// an asynchrony (a lung without muscles makes none; common practice, no
+// source). Under the race detector, which runs it ten times slower, four
+// 15-minute stretches (the day runs in the plain test run).
 func TestPassiveDayHasNoAsynchrony(t *testing.T) {
-	sc := lungsim.Scenario{Name: "passive day", Seed: 7, RateHz: 100, Duration: 24 * time.Hour,
-		Settings: lungsim.Settings{Mode: lungsim.ModePC, R: 10, C: 45, PEEP: 6, RR: 18, Ti: 1.0, PInsp: 14, Rise: 0.1,
-			ValveR: 5, CardiacP: 0.3, CardiacRate: 80},
-		Sensor: lungsim.Sensor{PawNoise: 0.2, FlowNoise: 0.5, FlowDelay: 0.02}}
+	t.Parallel()
+	stretch := 6 * time.Hour
 	if raceEnabled {
-		sc.Duration = 3 * time.Hour
+		stretch = 15 * time.Minute
 	}
-	_, truths, found := runSim(t, sc, mechanics.Config{})
-	counts := map[string]int{}
-	for _, b := range found {
-		for _, w := range b.Asynchrony.Words() {
-			counts[w]++
-		}
-	}
-	t.Logf("%v simulated: %d breaths (%d simulated), asynchronies %v", sc.Duration, len(found), len(truths), counts)
-	if len(found) < len(truths)*99/100 {
-		t.Errorf("%d breaths found of %d", len(found), len(truths))
-	}
-	if len(counts) > 0 {
-		t.Errorf("a passive lung with asynchronies: %v", counts)
+	for seed := uint64(7); seed < 11; seed++ {
+		t.Run(fmt.Sprint(seed), func(t *testing.T) {
+			t.Parallel()
+			sc := lungsim.Scenario{Name: "passive day", Seed: seed, RateHz: 100, Duration: stretch,
+				Settings: lungsim.Settings{Mode: lungsim.ModePC, R: 10, C: 45, PEEP: 6, RR: 18, Ti: 1.0, PInsp: 14, Rise: 0.1,
+					ValveR: 5, CardiacP: 0.3, CardiacRate: 80},
+				Sensor: lungsim.Sensor{PawNoise: 0.2, FlowNoise: 0.5, FlowDelay: 0.02}}
+			_, truths, found := runSim(t, sc, mechanics.Config{})
+			counts := map[string]int{}
+			for _, b := range found {
+				for _, w := range b.Asynchrony.Words() {
+					counts[w]++
+				}
+			}
+			t.Logf("%v simulated (seed %d): %d breaths (%d simulated), asynchronies %v", sc.Duration, seed, len(found), len(truths), counts)
+			if len(found) < len(truths)*99/100 {
+				t.Errorf("%d breaths found of %d", len(found), len(truths))
+			}
+			if len(counts) > 0 {
+				t.Errorf("a passive lung with asynchronies: %v", counts)
+			}
+		})
 	}
 }
 
@@ -312,7 +331,7 @@ func TestAsynchronyPeriods(t *testing.T) {
 func TestAsynchronyDoesNotAllocate(t *testing.T) {
 	sc := loadScenario(t, "asynchrony")
 	sc.Defaults()
-	sc.Duration = 25 * time.Minute // past the switch to pressure control
+	sc.Duration = 21 * time.Minute // past the switch to pressure control
 	sim := lungsim.NewSim(sc, nil)
 	var data []lungsim.SimSample
 	var s lungsim.SimSample
