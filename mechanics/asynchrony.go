@@ -208,21 +208,22 @@ func (s *Segmenter) pulledIn(j int) bool {
 	return false
 }
 
-// binWidth is the width of the bins the effort detectors average over, s:
-// shorter than an effort's fall or recovery (0.2 s and more), long enough
-// to average a sensor's noise.
+// binWidth is the width of the bins the ineffective-effort scan averages
+// over, s: shorter than an effort's fall or recovery (0.2 s and more),
+// long enough to average a sensor's noise; the reverse-trigger scan, which
+// looks for a rise that lasts, takes bins twice as wide.
 const binWidth = 0.05
 
 // bin averages pressure and flow over samples [lo, hi) into bins of about
-// binWidth (wider when they would not fit the scratch buffers) and returns
+// width s (wider when they would not fit the scratch buffers) and returns
 // them with the first sample index of each bin's successor: bin k spans
 // [lo + k·w, lo + (k+1)·w).
-func (s *Segmenter) bin(lo, hi int) (ps, fs []float64, w int) {
+func (s *Segmenter) bin(lo, hi int, width float64) (ps, fs []float64, w int) {
 	if hi-lo < 2 {
 		return nil, nil, 1
 	}
 	dt := (s.t[hi-1] - s.t[lo]) / float64(hi-1-lo)
-	w = max(1, int(binWidth/dt+0.5))
+	w = max(1, int(width/dt+0.5))
 	for (hi-lo)/w > len(s.scrP) {
 		w++
 	}
@@ -263,7 +264,7 @@ func (s *Segmenter) bin(lo, hi int) (ps, fs []float64, w int) {
 // simulator.
 func (s *Segmenter) ineffectiveEfforts(e, j int, at *[3]float64) int {
 	c := &s.cfg.Asynchrony
-	ps, fs, w := s.bin(e, j)
+	ps, fs, w := s.bin(e, j, binWidth)
 	nb := len(ps)
 	if nb < 8 {
 		return 0
@@ -339,14 +340,16 @@ func together(ps, fs []float64, a, i int) bool {
 }
 
 // reverseEffort reports whether the patient's effort began during the
-// inflation of a breath the ventilator started: past half the pressure's
-// swing and while gas still flows in (not in a pause), within 0.5 s the
-// pressure fell by EffortDip or more while the flow did not fall (volume
-// control), or the flow rose by twice EffortFlow or more while the
-// pressure did not rise (pressure control).
+// inflation of a breath the ventilator started, on 0.1 s means of
+// pressure and flow (a change that lasts, not a sensor's spike): past
+// half the pressure's swing and while gas still flows in (not in a
+// pause), within 0.5 s the pressure fell by EffortDip or more while the
+// flow did not fall (volume control), or the flow rose by EffortFlow or
+// more while the pressure did not rise (pressure control); "did not"
+// allows twice the means' noise.
 func (s *Segmenter) reverseEffort(e int) bool {
 	c := &s.cfg.Asynchrony
-	ps, fs, w := s.bin(0, e)
+	ps, fs, w := s.bin(0, e, 2*binWidth)
 	nb := len(ps)
 	if nb < 4 {
 		return false
@@ -367,15 +370,13 @@ func (s *Segmenter) reverseEffort(e int) bool {
 	pn, fn := 2*s.noiseP()/math.Sqrt(nbin), 2*s.noiseF()/math.Sqrt(nbin)
 	span := int(0.5/dt + 0.5)
 	inflow := s.cfg.StartFlow
-	// 3-bin means: a rise that lasts, not a sensor's spike
-	m3 := func(x []float64, k int) float64 { return (x[max(k-1, 0)] + x[k] + x[min(k+1, nb-1)]) / 3 }
 	for b := k0 + 1; b < nb; b++ {
-		fb, pb := m3(fs, b), m3(ps, b)
+		fb, pb := fs[b], ps[b]
 		if fb < inflow {
 			continue
 		}
 		for a := max(k0, b-span); a < b; a++ {
-			fa, pa := m3(fs, a), m3(ps, a)
+			fa, pa := fs[a], ps[a]
 			if fa < inflow {
 				continue
 			}
