@@ -72,6 +72,9 @@ func trendLine(dev string, tr *mechanics.Trend) string {
 	if r := tr.Rise; r.Cause != mechanics.RiseNone {
 		parts = append(parts, fmt.Sprintf("peak %+.1f cmH2O: %s (resistive %+.1f, elastic %+.1f, by %s)", r.PeakRise, r.Cause, r.ResistiveRise, r.ElasticRise, r.Method))
 	}
+	if a := &tr.Asynchrony; !math.IsNaN(a.Index()) {
+		parts = append(parts, fmt.Sprintf("asynchrony index %.1f %% (%d events)", a.Index(), a.Events()))
+	}
 	return wrap(parts, 80, strings.Repeat(" ", 11))
 }
 
