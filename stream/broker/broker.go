@@ -368,9 +368,25 @@ func (b *Broker) URL() string { return "mqtt://" + b.local }
 func (b *Broker) Publisher() (user, password string) { return PublisherUser, b.secret }
 
 // Close stops the broker; it is safe to call more than once.
+//
+// The listeners are closed first, with their clients disconnected from a
+// copy of the client list: mochi's own Close lists each listener's
+// clients under a read lock taken twice, which deadlocks when a client
+// leaves between the two (mochi-mqtt/server#488, open in v2.7.9; a test
+// hung on it for ten minutes). Each listener closes its clients once, so
+// mochi's Close then finds nothing left to list.
 func (b *Broker) Close() error {
 	var err error
-	b.once.Do(func() { err = b.srv.Close() })
+	b.once.Do(func() {
+		b.srv.Listeners.CloseAll(func(listener string) {
+			for _, cl := range b.srv.Clients.GetAll() {
+				if cl.Net.Listener == listener && !cl.Closed() {
+					_ = b.srv.DisconnectClient(cl, packets.ErrServerShuttingDown)
+				}
+			}
+		})
+		err = b.srv.Close()
+	})
 	return err
 }
 
