@@ -202,13 +202,13 @@ func loadScenario(t *testing.T, name string) lungsim.Scenario {
 // and double triggers: sensitivity and PPV at least 90 % over the four
 // runs; the index within 1 percentage point of the truth's in each.
 func TestAsynchronyAgainstSimulator(t *testing.T) {
-	t.Parallel()
+	parallel(t)
 	seeds := []uint64{20, 21, 22, 23}
 	scores := make([]asyScore, len(seeds))
 	t.Run("seeds", func(t *testing.T) {
 		for k, seed := range seeds {
 			t.Run(fmt.Sprint(seed), func(t *testing.T) {
-				t.Parallel()
+				parallel(t)
 				sc := loadScenario(t, "asynchrony")
 				sc.Seed = seed
 				_, truths, found := runSim(t, sc, mechanics.Config{})
@@ -242,14 +242,14 @@ func TestAsynchronyAgainstSimulator(t *testing.T) {
 // source). Under the race detector, which runs it ten times slower, four
 // 15-minute stretches (the day runs in the plain test run).
 func TestPassiveDayHasNoAsynchrony(t *testing.T) {
-	t.Parallel()
+	parallel(t)
 	stretch := 6 * time.Hour
 	if raceEnabled {
 		stretch = 15 * time.Minute
 	}
 	for seed := uint64(7); seed < 11; seed++ {
 		t.Run(fmt.Sprint(seed), func(t *testing.T) {
-			t.Parallel()
+			parallel(t)
 			sc := lungsim.Scenario{Name: "passive day", Seed: seed, RateHz: 100, Duration: stretch,
 				Settings: lungsim.Settings{Mode: lungsim.ModePC, R: 10, C: 45, PEEP: 6, RR: 18, Ti: 1.0, PInsp: 14, Rise: 0.1,
 					ValveR: 5, CardiacP: 0.3, CardiacRate: 80},
@@ -361,5 +361,15 @@ func TestAsynchronyDoesNotAllocate(t *testing.T) {
 	}
 	if found == 0 {
 		t.Error("no asynchrony found: the test tests nothing")
+	}
+}
+
+// parallel runs the test beside the others, except under the race
+// detector: there the other packages' timing-sensitive tests (a broker
+// restarted, a browser waiting) share the machine's cores with this
+// package's long simulations, so these take one core.
+func parallel(t *testing.T) {
+	if !raceEnabled {
+		t.Parallel()
 	}
 }
