@@ -111,6 +111,9 @@ func (a *asyState) reset() {
 	*a = asyState{prevTe: nan, untrig: nan}
 }
 
+// last is the value added last; 0 for none.
+func (r *ring8) last() float64 { return r.v[(r.n+len(r.v)-1)%len(r.v)] }
+
 // mean of the values kept; NaN for none.
 func (r *ring8) mean() float64 {
 	m := min(r.n, len(r.v))
@@ -137,7 +140,7 @@ func (s *Segmenter) asynchrony(b *Breath, e, j int, trig bool) {
 		b.IneffectiveEfforts = 0
 	}
 	meanTi := a.ti.mean()
-	settled := a.n >= 4 && !s.afterDrop // enough breaths before this one, none dropped
+	settled := a.n >= 4 // four breaths since the start or the last drop (which resets a)
 	if settled && a.prevTrig && a.prevTe < c.DoubleTe*meanTi {
 		b.Asynchrony |= AsyDoubleTrigger
 	}
@@ -149,7 +152,7 @@ func (s *Segmenter) asynchrony(b *Breath, e, j int, trig bool) {
 			b.Asynchrony |= AsyLongCycle
 		}
 	}
-	interval := a.period.v[(a.period.n+7)%8] // since the previous start
+	interval := a.period.last() // since the previous start
 	if !trig && settled && b.Asynchrony&AsyDoubleTrigger == 0 {
 		// a cycle that nobody triggered: the ventilator's own timed cycle
 		// comes at its set interval, the same as its last untriggered one
@@ -216,7 +219,7 @@ const binWidth = 0.05
 
 // bin averages pressure and flow over samples [lo, hi) into bins of about
 // width s (wider when they would not fit the scratch buffers) and returns
-// them with the first sample index of each bin's successor: bin k spans
+// them, in the scratch buffers, with the samples per bin w: bin k spans
 // [lo + k·w, lo + (k+1)·w).
 func (s *Segmenter) bin(lo, hi int, width float64) (ps, fs []float64, w int) {
 	if hi-lo < 2 {
@@ -398,25 +401,31 @@ const PeriodLength = 600
 // Tally counts the asynchronies of a run of breaths for the asynchrony
 // index.
 type Tally struct {
-	Start, End float64              // stream time of the first breath's start and the last's end, s
+	// Start and End are the stream time of the first breath's start and
+	// the last's end, s; for a fixed period (Periods), the period's.
+	Start, End float64
 	Cycles     int                  // ventilator cycles: the breaths
 	Counts     [NumAsynchronies]int // events by type; ineffective efforts by their number
 }
 
 // Add counts one breath.
-func (a *Tally) Add(b *Breath) {
+func (a *Tally) Add(b *Breath) { a.count(b.TStart, b.TEnd, b.Asynchrony, b.IneffectiveEfforts) }
+
+// count counts a breath from [start, end) with asynchronies asy and ie
+// ineffective efforts.
+func (a *Tally) count(start, end float64, asy Asynchrony, ie float64) {
 	if a.Cycles == 0 {
-		a.Start = b.TStart
+		a.Start = start
 	}
-	a.End = b.TEnd
+	a.End = end
 	a.Cycles++
 	for i := 1; i < NumAsynchronies; i++ {
-		if b.Asynchrony&(1<<i) != 0 {
+		if asy&(1<<i) != 0 {
 			a.Counts[i]++
 		}
 	}
-	if n := b.IneffectiveEfforts; n > 0 && !math.IsNaN(n) {
-		a.Counts[0] += int(n)
+	if ie > 0 {
+		a.Counts[0] += int(ie)
 	}
 }
 
@@ -445,26 +454,26 @@ func (a *Tally) Index() float64 {
 	return 100 * float64(a.Events()) / float64(base)
 }
 
-// periods keeps the tally of the fixed period in progress and of the last
-// complete one.
-type periods struct {
-	cur, last Tally
-	k         int64 // the period in progress: its start over PeriodLength; −1 before the first breath
-	hasLast   bool
+// Periods tallies breaths by fixed periods of PeriodLength s of stream
+// time from 0: the period in progress and the last one that ended before
+// it. The zero value is ready.
+type Periods struct {
+	Current, Last Tally
+	HasLast       bool // false until a period has ended
+	k             float64
+	started       bool
 }
 
-func (p *periods) add(b *Breath) {
-	k := int64(math.Floor(b.TStart / PeriodLength))
-	if k != p.k {
-		if p.k >= 0 && k == p.k+1 {
-			p.last, p.hasLast = p.cur, true
-		} else {
-			p.hasLast = false // a jump: the period before this one saw no breath
-			if p.k >= 0 && p.cur.Cycles > 0 && k > p.k+1 {
-				p.last, p.hasLast = p.cur, true
-			}
-		}
-		p.cur, p.k = Tally{}, k
+// Add counts b in the period its start falls in, and reports whether that
+// began a new period after the one in progress (which is then Last).
+func (p *Periods) Add(b *Breath) (ended bool) {
+	k := math.Floor(b.TStart / PeriodLength)
+	if !p.started || k != p.k {
+		ended = p.started && k > p.k // stream time that goes back starts afresh
+		p.Last, p.HasLast = p.Current, ended
+		p.Current, p.k, p.started = Tally{}, k, true
 	}
-	p.cur.Add(b)
+	p.Current.Add(b)
+	p.Current.Start, p.Current.End = k*PeriodLength, (k+1)*PeriodLength
+	return ended
 }

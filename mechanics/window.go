@@ -151,7 +151,7 @@ type Window struct {
 	ring    [][]float64 // the last Breaths breaths' values (output order)
 	flags   []Flags
 	asy     []Asynchrony // the breaths' asynchronies, beside ring
-	periods periods
+	periods Periods
 	head, n int
 	hist    []part // ring of breath parts for the baseline
 	hHead   int
@@ -185,7 +185,7 @@ func NewWindow(cfg WindowConfig) (*Window, error) {
 		return nil, err
 	}
 	w := &Window{cfg: cfg, ring: make([][]float64, cfg.Breaths), flags: make([]Flags, cfg.Breaths),
-		asy: make([]Asynchrony, cfg.Breaths), periods: periods{k: -1}}
+		asy: make([]Asynchrony, cfg.Breaths)}
 	for i := range w.ring {
 		w.ring[i] = make([]float64, 0, NumFields)
 	}
@@ -215,7 +215,7 @@ func (w *Window) Add(b *Breath) {
 	w.ring[w.head] = b.TrustedValues(w.ring[w.head][:0])
 	w.flags[w.head] = b.Flags
 	w.asy[w.head] = b.Asynchrony
-	w.periods.add(b)
+	w.periods.Add(b)
 	w.head = (w.head + 1) % len(w.ring)
 	w.n = min(w.n+1, len(w.ring))
 	w.remember(b)
@@ -243,7 +243,7 @@ func (w *Window) Trend() *Trend {
 	tr.CSlope, tr.DPSlope = w.slopes()
 	tr.Rise = w.attribute(w.last, idx)
 	tr.Asynchrony = w.tally(idx)
-	tr.Current, tr.Period, tr.HasPeriod = w.periods.cur, w.periods.last, w.periods.hasLast
+	tr.Current, tr.Period, tr.HasPeriod = w.periods.Current, w.periods.Last, w.periods.HasLast
 	return tr
 }
 
@@ -252,7 +252,7 @@ func (w *Window) tally(idx []int) Tally {
 	var a Tally
 	for _, slot := range idx {
 		v := w.ring[slot]
-		a.Add(&Breath{TStart: v[0], TEnd: v[1], Asynchrony: w.asy[slot], IneffectiveEfforts: v[iIE]})
+		a.count(v[0], v[1], w.asy[slot], v[iIE])
 	}
 	return a
 }

@@ -299,17 +299,17 @@ type summary struct {
 	last  float64
 	flags [16]int64 // by flag bit
 	asy   mechanics.Tally
-	// the fixed 10-minute period in progress (its number perK) and the
-	// complete one with the highest asynchrony index
-	per, worst mechanics.Tally
-	perK       int64
-	res        [][]float64
-	seen       []int64
-	rng        *rand.Rand
+	// the fixed 10-minute periods, and the complete one with the highest
+	// asynchrony index
+	per   mechanics.Periods
+	worst mechanics.Tally
+	res   [][]float64
+	seen  []int64
+	rng   *rand.Rand
 }
 
 func newSummary() *summary {
-	s := &summary{res: make([][]float64, len(summaryFields)), perK: -1,
+	s := &summary{res: make([][]float64, len(summaryFields)),
 		seen: make([]int64, len(summaryFields)), rng: rand.New(rand.NewPCG(1, 2))}
 	for i := range s.res {
 		s.res[i] = make([]float64, 0, reservoirSize) // allocated once: the same memory for any file
@@ -329,11 +329,12 @@ func (s *summary) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
 		}
 	}
 	s.asy.Add(b)
-	if k := int64(math.Floor(b.TStart / mechanics.PeriodLength)); k != s.perK {
-		s.endPeriod()
-		s.per, s.perK = mechanics.Tally{}, k
+	if s.per.Add(b) {
+		idx, worst := s.per.Last.Index(), s.worst.Index()
+		if !math.IsNaN(idx) && (math.IsNaN(worst) || idx > worst) {
+			s.worst = s.per.Last
+		}
 	}
-	s.per.Add(b)
 	for i, f := range summaryFields {
 		v, _ := b.Trusted(f) // what the breath's flags disown is not the lung's
 		if math.IsNaN(v) {
@@ -345,13 +346,6 @@ func (s *summary) Breath(_ string, b *mechanics.Breath, _ *mechanics.Window) {
 		} else if k := s.rng.Int64N(s.seen[i]); k < reservoirSize {
 			s.res[i][k] = v
 		}
-	}
-}
-
-// endPeriod keeps the period that ends if its index is the highest yet.
-func (s *summary) endPeriod() {
-	if idx := s.per.Index(); !math.IsNaN(idx) && (math.IsNaN(s.worst.Index()) || idx > s.worst.Index()) {
-		s.worst = s.per
 	}
 }
 
@@ -373,8 +367,7 @@ func (s *summary) asynchronyText() string {
 		b.WriteString(")")
 	}
 	if idx := s.worst.Index(); !math.IsNaN(idx) {
-		start := math.Floor(s.worst.Start/mechanics.PeriodLength) * mechanics.PeriodLength
-		fmt.Fprintf(&b, "; highest complete 10-min period %.1f %% (%.0f–%.0f s)", idx, start, start+mechanics.PeriodLength)
+		fmt.Fprintf(&b, "; highest complete 10-min period %.1f %% (%.0f–%.0f s)", idx, s.worst.Start, s.worst.End)
 	}
 	return b.String()
 }

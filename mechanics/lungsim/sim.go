@@ -43,9 +43,9 @@ type Truth struct {
 	Missed        int  // efforts that began in this breath's expiration and ended with no breath delivered
 	DoubleTrigger bool // triggered by the same effort as the breath before
 	AutoTrigger   bool // triggered with no effort under way (the heart's oscillation, say)
-	ShortCycle    bool // cycled at short_ti whatever the flow
-	LongCycle     bool // not cycled before long_ti
 	Reverse       bool // a machine-started breath that entrained an effort
+	// Short and long cycles are by their definition over Ti (the
+	// simulator's short_cycles and long_cycles make them).
 }
 
 // SimSample is one sample of the simulated stream.
@@ -592,9 +592,9 @@ func (s *Sim) asynchrony(ts float64, triggered, effort bool) {
 	if set.Mode == ModePS && set.ShortCycles+set.LongCycles > 0 {
 		switch u := s.erng.Float64(); {
 		case u < set.ShortCycles:
-			s.cycleKind, c.ShortCycle = 1, true
+			s.cycleKind = 1
 		case u < set.ShortCycles+set.LongCycles:
-			s.cycleKind, c.LongCycle = 2, true
+			s.cycleKind = 2
 		}
 	}
 	if !triggered && set.Mode != ModePS && set.EntrainShare > 0 && s.erng.Float64() < set.EntrainShare {

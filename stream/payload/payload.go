@@ -92,18 +92,17 @@ func Breath(device, run string, b *mechanics.Breath) []byte {
 	for i, f := range mechanics.Fields() {
 		m[f.Name] = num(v[i])
 	}
-	flags := b.Flags.Words()
-	if flags == nil {
-		flags = []string{}
-	}
-	m["flags"] = flags
-	asy := b.Asynchrony.Words()
-	if asy == nil {
-		asy = []string{}
-	}
-	m["asynchrony"] = asy
+	m["flags"], m["asynchrony"] = array(b.Flags.Words()), array(b.Asynchrony.Words())
 	out, _ := json.Marshal(m)
 	return out
+}
+
+// array is words as a JSON array, [] for none.
+func array(words []string) []string {
+	if words == nil {
+		return []string{}
+	}
+	return words
 }
 
 type statPayload struct {
@@ -148,7 +147,7 @@ type tallyPayload struct {
 	Events int            `json:"events" doc:"|asynchrony events: each word of each breath once, ineffective efforts by their number"`
 	Cycles int            `json:"cycles" doc:"|ventilator cycles (breaths)"`
 	Counts map[string]int `json:"counts" doc:"|events by type, under the words of the breath's asynchrony"`
-	Start  num            `json:"start" doc:"s|stream time of the first breath's start"`
+	Start  num            `json:"start" doc:"s|stream time of the first breath's start (a period: its start)"`
 	End    num            `json:"end" doc:"s|stream time of the last breath's end (a period: its end)"`
 }
 
@@ -175,8 +174,6 @@ func Trend(device string, seq int64, tr *mechanics.Trend, at time.Time) []byte {
 	var period *tallyPayload
 	if tr.HasPeriod {
 		p := tallyOf(&tr.Period)
-		p.Start, p.End = num(math.Floor(tr.Period.Start/mechanics.PeriodLength)*mechanics.PeriodLength),
-			num((math.Floor(tr.Period.Start/mechanics.PeriodLength)+1)*mechanics.PeriodLength)
 		period = &p
 	}
 	out, _ := json.Marshal(trendPayload{Version, device, seq, stamp(at), num(tr.At), tr.N, num(tr.Span), fields,

@@ -170,8 +170,7 @@ func asynchronyText(tr *mechanics.Trend) string {
 		b.WriteString(")")
 	}
 	if p := tr.Period.Index(); tr.HasPeriod && !math.IsNaN(p) {
-		end := (math.Floor(tr.Period.Start/mechanics.PeriodLength) + 1) * mechanics.PeriodLength
-		fmt.Fprintf(&b, "; %.1f %% in the 10 minutes to %.0f s", p, end)
+		fmt.Fprintf(&b, "; %.1f %% in the 10 minutes to %.0f s", p, tr.Period.End)
 	}
 	return b.String()
 }
